@@ -1,0 +1,24 @@
+"""diffkit: defensible diffusion numbers from MD of solid ion conductors.
+
+Internal units: Å, ps, eV, K, elementary charge. Public names are re-exported
+here; the modules behind them are implementation.
+"""
+
+from importlib.metadata import PackageNotFoundError, version as _version
+
+from .errors import (DiffkitError, DiffkitWarning, FitError, InputError, UnitsError,
+                     UsageError)
+from .trajectory import Trajectory
+from .io.assemble import read_trajectory
+from .io.store import ingest, open_run
+
+try:
+    __version__ = _version("diffkit")
+except PackageNotFoundError:  # pragma: no cover - running from a source tree
+    __version__ = "0.0.0+unknown"
+
+__all__ = [
+    "__version__",
+    "DiffkitError", "DiffkitWarning", "FitError", "InputError", "UnitsError", "UsageError",
+    "Trajectory", "read_trajectory", "open_run", "ingest",
+]
