@@ -1,0 +1,1 @@
+"""Presentation: plots, tables, JSON and HTML. Never computes physics."""
