@@ -11,6 +11,11 @@ from .errors import (DiffkitError, DiffkitWarning, FitError, InputError, UnitsEr
 from .trajectory import Trajectory
 from .io.assemble import read_trajectory
 from .io.store import ingest, open_run
+from .arrhenius import ArrheniusFit, ArrheniusPoint, fit_arrhenius
+from .conductivity import (CAUTIONS, CandidateSummary, Conductivity, ConductivityTiers,
+                           collective_conductivity, default_charge, extrapolate_conductivity,
+                           nernst_einstein, nernst_einstein_from_internal,
+                           sigma_from_charge_msd_slope, summarize_candidate, volume_at)
 
 try:
     __version__ = _version("diffkit")
@@ -21,4 +26,9 @@ __all__ = [
     "__version__",
     "DiffkitError", "DiffkitWarning", "FitError", "InputError", "UnitsError", "UsageError",
     "Trajectory", "read_trajectory", "open_run", "ingest",
+    "ArrheniusFit", "ArrheniusPoint", "fit_arrhenius",
+    "CAUTIONS", "CandidateSummary", "Conductivity", "ConductivityTiers",
+    "collective_conductivity", "default_charge", "extrapolate_conductivity", "nernst_einstein",
+    "nernst_einstein_from_internal", "sigma_from_charge_msd_slope", "summarize_candidate",
+    "volume_at",
 ]

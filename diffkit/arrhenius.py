@@ -33,6 +33,7 @@ from scipy import stats as _stats
 
 from .errors import FitError, InputError, UsageError, DiffkitWarning
 from .units import A2_PER_PS_IN_CM2_PER_S, K_B_EV_PER_K
+from .results import frozen_array, to_plain
 
 __all__ = [
     "fit_arrhenius",
@@ -48,7 +49,7 @@ __all__ = [
 #: Value of :attr:`ArrheniusFit.statistics` when the per-point errors are taken as known.
 STATISTICS_NORMAL = "normal: errors taken as known"
 #: Value of :attr:`ArrheniusFit.statistics` when the errors were scaled by √χ²_red.
-STATISTICS_STUDENT_T = "student-t: errors scaled by sqrt(chi2_red)"
+STATISTICS_STUDENT_T = "student-t, errors scaled by sqrt(chi2_red)"
 
 #: What can be fitted: quantity name -> (symbol used in field names, unit suffix, readable unit).
 QUANTITIES = {
@@ -65,39 +66,6 @@ _CONFIDENCE = 0.95
 
 
 # --------------------------------------------------------------------------- helpers
-
-
-def _plain(obj):
-    """Turn a result (dataclass, arrays, numpy scalars) into JSON-ready Python objects.
-
-    Non-finite floats become ``None`` (JSON has no NaN).
-    """
-    if is_dataclass(obj) and not isinstance(obj, type):
-        out = {f.name: _plain(getattr(obj, f.name)) for f in fields(obj)}
-        extra = getattr(obj, "_named_values", None)
-        if extra is not None:
-            out.update({k: _plain(v) for k, v in extra().items()})
-        return out
-    if isinstance(obj, np.ndarray):
-        return [_plain(v) for v in obj.tolist()]
-    if isinstance(obj, (list, tuple)):
-        return [_plain(v) for v in obj]
-    if isinstance(obj, dict):
-        return {str(k): _plain(v) for k, v in obj.items()}
-    if isinstance(obj, (bool, np.bool_)):
-        return bool(obj)
-    if isinstance(obj, (int, np.integer)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        v = float(obj)
-        return v if math.isfinite(v) else None
-    return obj
-
-
-def _frozen_array(values):
-    arr = np.array(values, dtype=float)
-    arr.setflags(write=False)
-    return arr
 
 
 def _fmt_interval(lo, hi, fmt=".3g"):
@@ -247,7 +215,7 @@ class ArrheniusPoint:
 
     def to_dict(self):
         """JSON-ready dict of every field plus the unit-named aliases."""
-        return _plain(self)
+        return to_plain(self)
 
     def __repr__(self):
         sym, _, unit_text = QUANTITIES[self.quantity]
@@ -281,7 +249,7 @@ class ArrheniusBand:
 
     def to_dict(self):
         """JSON-ready dict."""
-        return _plain(self)
+        return to_plain(self)
 
     def __repr__(self):
         t = self.temperatures_K
@@ -318,7 +286,7 @@ class UpperBoundCheck:
 
     def to_dict(self):
         """JSON-ready dict."""
-        return _plain(self)
+        return to_plain(self)
 
     def __repr__(self):
         state = "CONFLICT" if self.conflict else "consistent"
@@ -381,7 +349,8 @@ class ArrheniusFit:
     upper_bound_conflict : bool
     flags : tuple of str
         Short plain-word labels: ``"curvature"``, ``"upper bound conflict"``,
-        ``"scatter exceeds error bars"``, ``"two temperatures only"``,
+        ``"scatter exceeds error bars"`` (χ² significant at 95%; the errors are scaled
+        whenever χ²_red > 1), ``"two temperatures only"``,
         ``"duplicate temperatures combined"``, ``"large relative error"``.
     messages : tuple of str
         One plain sentence per flag or remark.
@@ -543,18 +512,18 @@ class ArrheniusFit:
         se_pred = np.hypot(se, self._typical_point_stderr())
         q = self.quantile95
         return ArrheniusBand(
-            temperatures_K=_frozen_array(t),
-            value=_frozen_array(np.exp(ln_mean)),
-            lower95=_frozen_array(np.exp(ln_mean - q * se)),
-            upper95=_frozen_array(np.exp(ln_mean + q * se)),
-            prediction_lower95=_frozen_array(np.exp(ln_mean - q * se_pred)),
-            prediction_upper95=_frozen_array(np.exp(ln_mean + q * se_pred)),
+            temperatures_K=frozen_array(t),
+            value=frozen_array(np.exp(ln_mean)),
+            lower95=frozen_array(np.exp(ln_mean - q * se)),
+            upper95=frozen_array(np.exp(ln_mean + q * se)),
+            prediction_lower95=frozen_array(np.exp(ln_mean - q * se_pred)),
+            prediction_upper95=frozen_array(np.exp(ln_mean + q * se_pred)),
             value_unit=self.value_unit,
         )
 
     def to_dict(self):
         """JSON-ready dict of every field plus the unit-named prefactor aliases."""
-        return _plain(self)
+        return to_plain(self)
 
     def __repr__(self):
         sym, _, unit_text = QUANTITIES[self.quantity]
@@ -773,7 +742,7 @@ def fit_arrhenius(temperatures_K, D_cm2_per_s, D_stderr_cm2_per_s, *, upper_boun
         prefactor=math.exp(ln_a),
         prefactor_stderr=math.exp(ln_a) * se_a,
         prefactor_interval95=(math.exp(ln_a - q * se_a), math.exp(ln_a + q * se_a)),
-        covariance=_frozen_array(cov),
+        covariance=frozen_array(cov),
         covariance_order=("ln_prefactor", "Ea_eV"),
         scale_factor=scale,
         chi2=chi2,
@@ -782,11 +751,11 @@ def fit_arrhenius(temperatures_K, D_cm2_per_s, D_stderr_cm2_per_s, *, upper_boun
         n_points=n,
         statistics=statistics,
         quantile95=q,
-        temperatures_K=_frozen_array(T),
-        ln_values=_frozen_array(ln_y),
-        ln_stderr=_frozen_array(ln_e),
+        temperatures_K=frozen_array(T),
+        ln_values=frozen_array(ln_y),
+        ln_stderr=frozen_array(ln_e),
         fitted_range_K=(float(T.min()), float(T.max())),
-        Ea_leave_one_out_eV=_frozen_array(loo),
+        Ea_leave_one_out_eV=frozen_array(loo),
         Ea_leave_one_out_spread_eV=spread,
         curvature_flag=bool(curved),
         curvature_p_value=float(p_curv),

@@ -19,6 +19,7 @@ __all__ = [
     "K_B_J_PER_K",
     "A2_PER_PS_IN_CM2_PER_S",
     "A3_IN_CM3",
+    "MS_PER_S",
     "a2ps_to_cm2s",
     "cm2s_to_a2ps",
     "parse_time_ps",
@@ -36,6 +37,8 @@ E_CHARGE_C: float = _c.e
 A2_PER_PS_IN_CM2_PER_S: float = (_c.angstrom / _c.centi) ** 2 / _c.pico
 #: One Å³ expressed in cm³.
 A3_IN_CM3: float = (_c.angstrom / _c.centi) ** 3
+#: mS/cm in one S/cm.
+MS_PER_S: float = 1.0 / _c.milli
 #: One atomic mass unit in kg.
 AMU_KG: float = _c.atomic_mass
 
