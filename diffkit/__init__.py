@@ -11,6 +11,7 @@ from .errors import (DiffkitError, DiffkitWarning, FitError, InputError, UnitsEr
 from .trajectory import Trajectory
 from .io.assemble import read_trajectory
 from .io.store import ingest, open_run
+from .io.write import write_extxyz, write_lammps_dump, write_xdatcar
 from .arrhenius import ArrheniusFit, ArrheniusPoint, fit_arrhenius
 from .conductivity import (CAUTIONS, CandidateSummary, Conductivity, ConductivityTiers,
                            collective_conductivity, default_charge, extrapolate_conductivity,
@@ -26,6 +27,7 @@ __all__ = [
     "__version__",
     "DiffkitError", "DiffkitWarning", "FitError", "InputError", "UnitsError", "UsageError",
     "Trajectory", "read_trajectory", "open_run", "ingest",
+    "write_extxyz", "write_lammps_dump", "write_xdatcar",
     "ArrheniusFit", "ArrheniusPoint", "fit_arrhenius",
     "CAUTIONS", "CandidateSummary", "Conductivity", "ConductivityTiers",
     "collective_conductivity", "default_charge", "extrapolate_conductivity", "nernst_einstein",

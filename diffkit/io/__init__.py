@@ -176,7 +176,7 @@ def detect_format(path):
     with open_text(path) as f:
         head = f.read(4096)
     if not head.strip():
-        raise InputError(f"{source_name(path)}: file is empty, expected a trajectory")
+        raise InputError(f"{source_name(path)}: line 1: file is empty, expected a trajectory")
     for fmt in FORMATS:
         if fmt == "asefile":
             continue

@@ -15,11 +15,10 @@ import warnings
 
 import numpy as np
 
-from ..errors import DiffkitWarning, InputError
+from ..errors import DiffkitWarning, InputError, UsageError
 
-__all__ = ["LineSource", "BadLine", "parse_columns", "element_symbol", "normalize_type_map", "opened",
-           "is_number_line",
-           "chunk_frames", "warn", "LINE_BUDGET"]
+__all__ = ["LineSource", "BadLine", "CutOff", "parse_columns", "element_symbol",
+           "normalize_type_map", "opened", "is_number_line", "chunk_frames", "warn", "LINE_BUDGET"]
 
 #: Largest number of atom lines held in memory at once (bounds a chunk for big systems).
 LINE_BUDGET = 500_000
@@ -31,37 +30,52 @@ def warn(message):
 
 
 def chunk_frames(frames_per_chunk, n_atoms):
-    """Frames per chunk: ``frames_per_chunk``, capped so a chunk holds at most LINE_BUDGET atom lines."""
+    """``frames_per_chunk``, capped so that a chunk holds at most LINE_BUDGET atom lines."""
     if int(frames_per_chunk) < 1:
-        raise ValueError(f"frames_per_chunk must be >= 1, got {frames_per_chunk!r}")
+        raise UsageError(f"frames_per_chunk must be >= 1, got {frames_per_chunk!r}")
     return max(1, min(int(frames_per_chunk), LINE_BUDGET // max(int(n_atoms), 1)))
 
 
 class LineSource:
     """A text stream that counts the lines it has handed out.
 
+    A last line without a newline is taken as cut off (every writer ends its
+    lines): it is not handed out, and ``cut`` becomes True, so that the reader
+    drops the frame it belongs to with a warning instead of reading a number cut
+    short.
+
     Attributes
     ----------
     lineno : int
         Number of lines read so far (so the last line read is line ``lineno``, from 1).
+    cut : bool
+        The file ended in the middle of a (non-blank) line.
     """
 
     def __init__(self, stream, name):
         self._f = stream
         self.name = name
         self.lineno = 0
+        self.cut = False
 
     def readline(self):
-        """Next line with its newline, or ``""`` at the end of the file."""
+        """Next whole line with its newline, or ``""`` at the end of the file."""
         line = self._f.readline()
-        if line:
-            self.lineno += 1
+        if not line:
+            return ""
+        self.lineno += 1
+        if not line.endswith("\n"):
+            self.cut = bool(line.strip())
+            return ""
         return line
 
     def take(self, n):
-        """Up to ``n`` next lines (fewer only at the end of the file)."""
+        """Up to ``n`` next whole lines (fewer only at the end of the file)."""
         lines = list(itertools.islice(self._f, n))
         self.lineno += len(lines)
+        if lines and not lines[-1].endswith("\n"):
+            self.cut = self.cut or bool(lines[-1].strip())
+            lines.pop()
         return lines
 
     def next_nonblank(self):
@@ -79,6 +93,21 @@ class BadLine(Exception):
         super().__init__(index, reason)
         self.index = index
         self.reason = reason
+
+
+class CutOff(Exception):
+    """The file ends inside a frame that starts at line ``lineno``."""
+
+    def __init__(self, lineno, got, n=None, mid_line=False):
+        super().__init__(lineno, got)
+        self.lineno, self.got, self.n, self.mid_line = lineno, got, n, mid_line
+
+    def how(self):
+        """Where the frame ends, in words."""
+        if self.n is None:
+            return "the file ends in its header"
+        tail = ", the last one cut mid-line" if self.mid_line else ""
+        return f"the file ends after {self.got} of its {self.n} atom lines{tail}"
 
 
 def parse_columns(lines, usecols, min_fields=None):
@@ -180,7 +209,8 @@ def normalize_type_map(type_map, source):
         try:
             k = int(key)
         except (TypeError, ValueError):
-            raise InputError(f"{source}: type_map key {key!r} is not an integer atom type") from None
+            raise InputError(f"{source}: type_map key {key!r} is not an integer atom "
+                             "type") from None
         sym = element_symbol(str(value))
         if sym is None or sym != str(value).strip():
             raise InputError(f"{source}: type_map maps type {k} to {value!r}, "
