@@ -13,6 +13,8 @@ from .io.assemble import read_trajectory
 from .io.store import ingest, open_run
 from .io.write import write_extxyz, write_lammps_dump, write_xdatcar
 from .arrhenius import ArrheniusFit, ArrheniusPoint, fit_arrhenius
+from .synth import (CampaignTruth, GroundTruth, SyntheticRun, arrhenius_campaign, hopping_run,
+                    vacancy_kmc_run, write_run)
 from .conductivity import (CAUTIONS, CandidateSummary, Conductivity, ConductivityTiers,
                            collective_conductivity, default_charge, extrapolate_conductivity,
                            nernst_einstein, nernst_einstein_from_internal,
@@ -33,4 +35,6 @@ __all__ = [
     "collective_conductivity", "default_charge", "extrapolate_conductivity", "nernst_einstein",
     "nernst_einstein_from_internal", "sigma_from_charge_msd_slope", "summarize_candidate",
     "volume_at",
+    "CampaignTruth", "GroundTruth", "SyntheticRun", "arrhenius_campaign", "hopping_run",
+    "vacancy_kmc_run", "write_run",
 ]

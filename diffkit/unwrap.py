@@ -126,7 +126,7 @@ class Unwrapper:
         """Mark the start of a new file: file-given unwrapped coordinates restart there."""
         self._last_given = None
 
-    def feed(self, positions, cells, kind, *, images=None, source="<data>", first_frame=0):
+    def feed(self, positions, cells, kind, *, images=None, source="<data>", first_frame=1):
         """Unwrap one chunk.
 
         Parameters
@@ -141,7 +141,8 @@ class Unwrapper:
         source : str
             File name used in error messages.
         first_frame : int
-            Index in the file of the chunk's first frame, for error messages.
+            Number of the chunk's first frame in its file as messages show it
+            (diffkit counts frames from 1 in messages).
 
         Returns
         -------

@@ -197,12 +197,13 @@ class RunAssembler:
                 continue
             if run["t_first"] is None:
                 run["t_first"] = float(times[sel[0]])
-            first = chunk.first_frame + int(sel[0])
+            first = chunk.first_frame + int(sel[0]) + 1  # frames count from 1 in messages
+            if n_kept == 0 and run["last_wrapped"] is not None:
+                self._check_join(name, first, minimum_image(
+                    chunk.positions[sel[0]] - run["last_wrapped"], chunk.cells[sel[0]]), run)
             unwrapped = unwrapper.feed(chunk.positions[sel], chunk.cells[sel], chunk.kind,
                                        images=None if chunk.images is None else chunk.images[sel],
                                        source=name, first_frame=first)
-            if n_kept == 0 and run["last_unwrapped"] is not None:
-                self._check_join(name, first, unwrapped[0], run)
             n_kept += sel.size
             if len(unwrapped) > 1:
                 run["max_step"] = max(run["max_step"], float(
@@ -231,15 +232,15 @@ class RunAssembler:
             self.species = tuple(chunk.species)
             self.has_velocities = chunk.velocities is not None
         elif tuple(chunk.species) != self.species:
-            raise InputError(f"{name}: frame {chunk.first_frame} has atoms "
+            raise InputError(f"{name}: frame {chunk.first_frame + 1} has atoms "
                              f"{_describe(chunk.species)}, expected {_describe(self.species)} "
                              f"as in {source_name(self.paths[0])}")
         if chunk.velocities is None:
             self.has_velocities = False  # velocities only where every part has them
 
-    def _check_join(self, name, frame, first_unwrapped, run):
-        """Positions must continue across the join of two files."""
-        join = np.linalg.norm(first_unwrapped - run["last_unwrapped"], axis=-1)
+    def _check_join(self, name, frame, step, run):
+        """Positions must continue across the join of two files (``step``: (n, 3) Å)."""
+        join = np.linalg.norm(step, axis=-1)
         limit = 4 * run["max_step"] + 0.5
         if join.max() > limit:
             atom = int(np.argmax(join))
@@ -268,7 +269,7 @@ class RunAssembler:
                 seq = steps if k > 1 else np.array([clock["prev_step"], steps[0]])
                 self._dstep = int(seq[1] - seq[0])
                 if self._dstep <= 0:
-                    raise InputError(f"{name}: frame {chunk.first_frame + 1}: step numbers do not "
+                    raise InputError(f"{name}: frame {chunk.first_frame + 2}: step numbers do not "
                                      "increase")
             clock["prev_step"] = int(steps[-1])
             times = (steps - self._step0) / (self._dstep or 1) * given_dt
@@ -287,11 +288,11 @@ class RunAssembler:
             dt = np.diff(seq)
             ref = clock["interval"] if clock["interval"] is not None else float(dt[0])
             if not ref > 0:
-                raise InputError(f"{name}: frame {chunk.first_frame + 1}: time does not increase "
+                raise InputError(f"{name}: frame {chunk.first_frame + 2}: time does not increase "
                                  f"(from {how})")
             bad = np.flatnonzero(np.abs(dt - ref) > _REL_TOL * ref + 1e-9)
             if bad.size:
-                i = int(bad[0]) + (0 if clock["prev_t"] is not None else 1)
+                i = int(bad[0]) + (1 if clock["prev_t"] is not None else 2)
                 raise InputError(f"{name}: frame {chunk.first_frame + i}: frames are not evenly "
                                  f"spaced in time (step {dt[bad[0]]:.6g} ps, expected {ref:.6g} "
                                  f"ps, from {how})")
