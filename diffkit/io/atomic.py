@@ -9,6 +9,12 @@ import tempfile
 __all__ = ["atomic_write", "atomic_path"]
 
 
+def _umask():
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 @contextlib.contextmanager
 def atomic_path(path):
     """Yield a temporary path beside ``path``; on success it is renamed onto ``path``.
@@ -22,6 +28,7 @@ def atomic_path(path):
     os.close(fd)
     try:
         yield tmp
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual permissions
         os.replace(tmp, path)
     except BaseException:
         with contextlib.suppress(OSError):

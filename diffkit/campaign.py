@@ -1,0 +1,508 @@
+"""Campaigns: many candidates × temperatures, resumable, on a process pool or Dask.
+
+Layout of the output folder (``--out``)::
+
+    runs/<candidate>/<label>.h5          run file: trajectory + /results + attrs input_key
+    runs/<candidate>/<label>.failed.json a run that failed: its one-line reason and key
+    candidates/<candidate>.json          Arrhenius fit, σ(target) with band, tier, flags
+    summary.csv, summary.json            candidates ranked by σ(target)
+    report.html                          the self-contained report
+    .content-hashes.json                 cache of input SHA-256 by (path, size, mtime)
+
+A run is recomputed only when its key — the SHA-256 of its input files'
+contents, its read options, its analysis settings and diffkit's version —
+changed. Every file is written atomically (temporary file, then rename), so a
+campaign killed at any point resumes cleanly: a half-written file is never
+taken as done. Every resampling inside the analysis is seeded from the data,
+so results do not depend on order, pool size or interruptions.
+"""
+
+from __future__ import annotations
+
+import csv
+import dataclasses
+import hashlib
+import io
+import json
+import os
+import re
+import traceback
+from concurrent.futures import ProcessPoolExecutor
+from multiprocessing import get_context
+
+from .errors import DiffkitError, InputError, UsageError
+from .io.atomic import atomic_path, atomic_write
+from .io.manifest import read_manifest
+
+__all__ = ["CampaignResult", "RunOutcome", "run_campaign", "campaign_status", "slug"]
+
+_HASH_CACHE = ".content-hashes.json"
+
+
+def slug(text):
+    """A file-name-safe form of a candidate name or run label."""
+    s = re.sub(r"[^A-Za-z0-9._-]+", "_", str(text)).strip("._")
+    return s or "unnamed"
+
+
+# --------------------------------------------------------------------------- keys and hashes
+def _load_hash_cache(out_dir):
+    try:
+        with open(os.path.join(out_dir, _HASH_CACHE), encoding="utf-8") as f:
+            return json.load(f)
+    except (OSError, ValueError):
+        return {}
+
+
+def _content_hash(path, cache):
+    from .io.assemble import file_fingerprint
+
+    try:
+        st = os.stat(path)
+    except OSError as exc:
+        raise InputError(f"{path}: cannot be read ({exc.strerror})") from exc
+    ident = [st.st_size, st.st_mtime_ns]
+    hit = cache.get(path)
+    if hit and hit.get("ident") == ident:
+        return hit["sha256"]
+    digest = file_fingerprint(path)["sha256"]
+    cache[path] = {"ident": ident, "sha256": digest}
+    return digest
+
+
+def _version_tag():
+    from . import __version__
+
+    return __version__
+
+
+def _run_key(file_hashes, read_options, analysis):
+    blob = json.dumps({"files": file_hashes, "read": read_options, "analysis": analysis,
+                       "diffkit": _version_tag()}, sort_keys=True, default=str)
+    return hashlib.sha256(blob.encode()).hexdigest()
+
+
+# --------------------------------------------------------------------------- tasks
+@dataclasses.dataclass(frozen=True)
+class _Task:
+    candidate: str
+    label: str
+    files: tuple
+    read_options: dict
+    analysis: dict
+    key: str
+    run_path: str
+    failed_path: str
+
+
+@dataclasses.dataclass(frozen=True)
+class RunOutcome:
+    """What became of one run: ``status`` is "done", "reused" or "failed"."""
+
+    candidate: str
+    label: str
+    status: str
+    run_path: str
+    results: dict | None = None
+    reason: str = ""
+
+    def to_dict(self):
+        return dataclasses.asdict(self)
+
+
+def _analysis_settings(cand, run):
+    s = cand.settings
+    return {
+        "mobile": list(cand.mobile),
+        "reference": s.get("reference"),
+        "window_ps": list(s["window"]) if s.get("window") else None,
+        "method": s.get("method", "gls"),
+        "temperature_K": run.temperature_K,
+    }
+
+
+def _read_options_dict(run):
+    d = dataclasses.asdict(run.read_options())
+    if d.get("type_map"):
+        d["type_map"] = {str(k): v for k, v in d["type_map"].items()}
+    return d
+
+
+def _plan_tasks(manifest, out_dir, cache):
+    tasks = []
+    for cand in manifest.candidates:
+        labels = set()
+        for i, run in enumerate(cand.runs):
+            label = run.label or (f"T{run.temperature_K:g}K" if run.temperature_K else f"run{i + 1}")
+            if label in labels:
+                label = f"{label}-{i + 1}"
+            labels.add(label)
+            folder = os.path.join(out_dir, "runs", slug(cand.name))
+            run_path = os.path.join(folder, slug(label) + ".h5")
+            failed_path = os.path.join(folder, slug(label) + ".failed.json")
+            read_opts = _read_options_dict(run)
+            analysis = _analysis_settings(cand, run)
+            try:
+                hashes = [_content_hash(f, cache) for f in run.files]
+                key = _run_key(hashes, read_opts, analysis)
+            except InputError as exc:
+                hashes, key = None, "unreadable:" + str(exc)
+            tasks.append(_Task(cand.name, label, tuple(run.files), read_opts, analysis, key,
+                               run_path, failed_path))
+    return tasks
+
+
+def _stored_key(run_path):
+    import h5py
+
+    try:
+        with h5py.File(run_path, "r") as h5:
+            return str(h5.attrs.get("input_key", ""))
+    except OSError:
+        return None
+
+
+def _failed_key(failed_path):
+    try:
+        with open(failed_path, encoding="utf-8") as f:
+            return json.load(f).get("input_key")
+    except (OSError, ValueError):
+        return None
+
+
+def _execute(task):
+    """Worker: ingest and analyse one run, or reuse it. Never raises; returns a RunOutcome."""
+    from .io.assemble import ReadOptions
+    from .io.store import ingest, open_run, read_results
+
+    if os.path.exists(task.run_path) and _stored_key(task.run_path) == task.key:
+        return RunOutcome(task.candidate, task.label, "reused", task.run_path,
+                          results=read_results(task.run_path))
+    if _failed_key(task.failed_path) == task.key:  # same inputs failed before: say so again
+        with open(task.failed_path, encoding="utf-8") as f:
+            reason = json.load(f).get("reason", "failed before")
+        return RunOutcome(task.candidate, task.label, "failed", task.run_path, reason=reason)
+    try:
+        if task.key.startswith("unreadable:"):
+            raise InputError(task.key[len("unreadable:"):])
+        opts = dict(task.read_options)
+        if opts.get("type_map"):
+            opts["type_map"] = {int(k): v for k, v in opts["type_map"].items()}
+        os.makedirs(os.path.dirname(task.run_path), exist_ok=True)
+        with atomic_path(task.run_path) as tmp:
+            ingest(list(task.files), tmp, ReadOptions(**opts))
+            traj = open_run(tmp)
+            try:
+                results = analyse_run(traj, task.analysis)
+            finally:
+                traj._store_handle.close()
+            _store_results(tmp, results, task.key)
+        if os.path.exists(task.failed_path):
+            os.unlink(task.failed_path)
+        return RunOutcome(task.candidate, task.label, "done", task.run_path, results=results)
+    except Exception as exc:  # a bad run must not stop the campaign
+        reason = str(exc) if isinstance(exc, DiffkitError) else \
+            f"{type(exc).__name__}: {exc} (unexpected; details in the .failed.json file)"
+        record = {"candidate": task.candidate, "label": task.label, "input_key": task.key,
+                  "reason": reason.splitlines()[0] if reason else type(exc).__name__,
+                  "traceback": traceback.format_exc()}
+        os.makedirs(os.path.dirname(task.failed_path), exist_ok=True)
+        with atomic_write(task.failed_path) as f:
+            json.dump(record, f, indent=2)
+        return RunOutcome(task.candidate, task.label, "failed", task.run_path,
+                          reason=record["reason"])
+
+
+def _store_results(path, results, key):
+    import h5py
+
+    from .io.store import write_result
+
+    for name, value in results.items():
+        write_result(path, name, value)
+    with h5py.File(path, "r+") as h5:
+        h5.attrs["input_key"] = key
+
+
+def analyse_run(traj, analysis):
+    """The per-run analysis of a campaign: verdict, D, hops, volume; JSON-ready dicts.
+
+    Parameters
+    ----------
+    traj : Trajectory
+    analysis : dict
+        ``mobile`` (list of symbols), ``reference``, ``window_ps``, ``method``.
+
+    Returns
+    -------
+    dict of str to dict
+        ``run`` (facts: temperature, volume, ion counts), ``assessment`` (verdict,
+        checks, advice, diffusion estimate, hops).
+    """
+    from .report.tables import run_overview  # facts only, no physics
+    from .trust import assess_run
+
+    mobile = analysis["mobile"]
+    species = mobile[0] if len(mobile) == 1 else mobile
+    kwargs = {}
+    if analysis.get("reference"):
+        kwargs["reference"] = analysis["reference"]
+    if analysis.get("window_ps"):
+        kwargs["window"] = tuple(analysis["window_ps"])
+    if analysis.get("method"):
+        kwargs["method"] = analysis["method"]
+    assessment = assess_run(traj, species, **kwargs)
+    facts = run_overview(traj)
+    facts["n_mobile_ions"] = int(sum(traj.count(s) for s in mobile))
+    facts["mobile"] = list(mobile)
+    return {"run": facts, "assessment": assessment.to_dict()}
+
+
+# --------------------------------------------------------------------------- runners
+def _run_tasks(tasks, workers, scheduler, progress):
+    if not tasks:
+        return []
+    if scheduler is not None:
+        return _run_dask(tasks, scheduler, progress)
+    if workers is None:
+        workers = os.cpu_count() or 1
+    if workers < 1:
+        raise UsageError(f"--workers must be at least 1, got {workers}")
+    out = []
+    if workers == 1 or len(tasks) == 1:
+        for i, t in enumerate(tasks):
+            out.append(_execute(t))
+            if progress:
+                progress(i + 1, len(tasks))
+        return out
+    with ProcessPoolExecutor(max_workers=min(workers, len(tasks)),
+                             mp_context=get_context("spawn")) as pool:
+        futures = [pool.submit(_execute, t) for t in tasks]
+        for i, fut in enumerate(futures):
+            out.append(fut.result())
+            if progress:
+                progress(i + 1, len(tasks))
+    return out
+
+
+def _run_dask(tasks, scheduler, progress):
+    try:
+        from dask.distributed import Client, as_completed
+    except ImportError as exc:
+        raise UsageError("running on a Dask cluster needs the optional extra: "
+                         "pip install 'diffkit[dask]'") from exc
+    own = isinstance(scheduler, str)
+    client = Client(scheduler) if own else scheduler
+    try:
+        futures = client.map(_execute, tasks, pure=False)
+        done = 0
+        for _ in as_completed(futures):
+            done += 1
+            if progress:
+                progress(done, len(tasks))
+        return client.gather(futures)
+    finally:
+        if own:
+            client.close()
+
+
+# --------------------------------------------------------------------------- candidates
+def _candidate_summary(cand, outcomes):
+    """Arrhenius fit and σ(target) of one candidate from its runs' results."""
+    from .conductivity import ConductivityTiers, summarize_candidate
+
+    s = cand.settings
+    Ts, D, se, bounds, vols, vol_T = [], [], [], [], [], []
+    Ds, Ds_se = [], []
+    n_ions = None
+    flags = []
+    for o in outcomes:
+        if o.status == "failed" or not o.results:
+            flags.append(f"run {o.label} failed: {o.reason}")
+            continue
+        facts = o.results["run"]
+        est = o.results["assessment"]["diffusion"]
+        T = facts["temperature_K"]
+        if T is None:
+            flags.append(f"run {o.label} has no temperature; left out of the Arrhenius fit")
+            continue
+        n_ions = facts["n_mobile_ions"]
+        vols.append(facts["volume_mean_A3"])
+        vol_T.append(T)
+        value = est.get("D_cm2_per_s")
+        if value is None:
+            flags.append(f"run {o.label} ({T:g} K) gave no diffusion coefficient: "
+                         f"{est.get('message', '')}")
+            continue
+        if est.get("is_upper_bound"):
+            bounds.append((T, value))
+            continue
+        Ts.append(T)
+        D.append(value)
+        se.append(est["D_stderr_cm2_per_s"])
+        Ds.append(est.get("D_sigma_cm2_per_s"))
+        Ds_se.append(est.get("D_sigma_stderr_cm2_per_s"))
+    if n_ions is None:
+        return None, flags + ["no run of this candidate could be analysed"]
+    tiers = ConductivityTiers(*s["tier_bounds_S_per_cm"]) if s.get("tier_bounds_S_per_cm") \
+        else ConductivityTiers()
+    by_T = dict(zip(vol_T, vols))
+    vol_list = [by_T[T] for T in Ts] if Ts else [min(vols)]
+    kwargs = {}
+    if Ds and all(v is not None for v in Ds) and all(v is not None for v in Ds_se):
+        kwargs = {"D_sigma_cm2_per_s": Ds, "D_sigma_stderr_cm2_per_s": Ds_se}
+    try:
+        summary = summarize_candidate(
+            cand.name, Ts, D, se, n_ions=n_ions, volumes_A3=vol_list if Ts else vol_list[0],
+            charge=s.get("charge"), species=cand.mobile[0], haven_ratio=s.get("haven_ratio", 1.0),
+            upper_bounds=bounds or None, target_K=s.get("target_temperature", 300.0),
+            tiers=tiers, **kwargs)
+    except DiffkitError as exc:
+        return None, flags + [f"no Arrhenius summary: {exc}"]
+    return summary, flags
+
+
+@dataclasses.dataclass(frozen=True)
+class CampaignResult:
+    """Outcome of a campaign: runs, candidate summaries, files written."""
+
+    title: str
+    out_dir: str
+    outcomes: tuple
+    summaries: dict        # candidate name -> CandidateSummary or None
+    candidate_flags: dict  # candidate name -> list of str
+    files: dict            # what was written: summary_csv, summary_json, report_html
+
+    @property
+    def n_failed(self):
+        return sum(o.status == "failed" for o in self.outcomes)
+
+    @property
+    def any_unreliable(self):
+        """True when a run failed or was judged unreliable (exit code 1 at the command line)."""
+        from .trust import VERDICT_WORST
+
+        if self.n_failed:
+            return True
+        return any(o.results and o.results["assessment"].get("verdict") == VERDICT_WORST
+                   for o in self.outcomes)
+
+    def to_dict(self):
+        from .results import to_plain
+
+        return {"title": self.title, "out_dir": self.out_dir,
+                "runs": [o.to_dict() for o in self.outcomes],
+                "candidates": {k: (None if v is None else to_plain(v))
+                               for k, v in self.summaries.items()},
+                "candidate_flags": self.candidate_flags, "files": self.files}
+
+
+def run_campaign(manifest_path, out_dir, *, workers=None, scheduler=None, progress=None,
+                 report=True):
+    """Run (or resume) a campaign.
+
+    Parameters
+    ----------
+    manifest_path : str
+        The campaign manifest (TOML; see docs/formats.md).
+    out_dir : str
+        Output folder (created).
+    workers : int, optional
+        Processes of the local pool; default the number of cores; 1 runs serially.
+    scheduler : str or dask.distributed.Client, optional
+        Address of a running Dask scheduler (or a client) to run on instead.
+    progress : callable, optional
+        Called as ``progress(done, total)`` after each run.
+    report : bool
+        Write the HTML report.
+
+    Returns
+    -------
+    CampaignResult
+    """
+    manifest = read_manifest(manifest_path)
+    out_dir = os.path.abspath(out_dir)
+    os.makedirs(out_dir, exist_ok=True)
+    _remove_stale_temporaries(out_dir)
+    cache = _load_hash_cache(out_dir)
+    tasks = _plan_tasks(manifest, out_dir, cache)
+    with atomic_write(os.path.join(out_dir, _HASH_CACHE)) as f:
+        json.dump(cache, f)
+    outcomes = _run_tasks(tasks, workers, scheduler, progress)
+    summaries, cflags = {}, {}
+    for cand in manifest.candidates:
+        mine = [o for o in outcomes if o.candidate == cand.name]
+        summary, flags = _candidate_summary(cand, mine)
+        summaries[cand.name], cflags[cand.name] = summary, flags
+        data = {"name": cand.name, "flags": flags,
+                "summary": None if summary is None else summary.to_dict()}
+        path = os.path.join(out_dir, "candidates", slug(cand.name) + ".json")
+        os.makedirs(os.path.dirname(path), exist_ok=True)
+        with atomic_write(path) as f:
+            json.dump(data, f, indent=2, default=str)
+    result = CampaignResult(manifest.title, out_dir, tuple(outcomes), summaries, cflags, {})
+    files = _write_summaries(result)
+    if report:
+        from .report.campaign_report import write_campaign_report
+
+        files["report_html"] = write_campaign_report(os.path.join(out_dir, "report.html"),
+                                                     manifest, result)
+    return dataclasses.replace(result, files=files)
+
+
+def _remove_stale_temporaries(out_dir):
+    for root, _, names in os.walk(out_dir):
+        for n in names:
+            if n.startswith(".") and n.endswith(".part"):
+                try:
+                    os.unlink(os.path.join(root, n))
+                except OSError:
+                    pass
+
+
+def _write_summaries(result):
+    from .report.tables import campaign_rows
+
+    rows = campaign_rows(result)
+    csv_path = os.path.join(result.out_dir, "summary.csv")
+    buf = io.StringIO()
+    if rows:
+        w = csv.DictWriter(buf, fieldnames=list(rows[0]))
+        w.writeheader()
+        w.writerows(rows)
+    with atomic_write(csv_path) as f:
+        f.write(buf.getvalue())
+    json_path = os.path.join(result.out_dir, "summary.json")
+    from .report.jsonout import to_jsonable
+
+    with atomic_write(json_path) as f:
+        json.dump(to_jsonable({"title": result.title, "ranking": rows,
+                               "campaign": result.to_dict()}), f, indent=2, allow_nan=False)
+    return {"summary_csv": csv_path, "summary_json": json_path}
+
+
+def campaign_status(manifest_path, out_dir):
+    """What is done, stale, failed or pending, without running anything.
+
+    Returns
+    -------
+    list of dict
+        One per run: candidate, label, status, reason (for failed runs).
+    """
+    manifest = read_manifest(manifest_path)
+    out_dir = os.path.abspath(out_dir)
+    cache = _load_hash_cache(out_dir)
+    rows = []
+    for t in _plan_tasks(manifest, out_dir, cache):
+        if os.path.exists(t.run_path):
+            status = "done" if _stored_key(t.run_path) == t.key else "stale"
+            reason = ""
+        elif _failed_key(t.failed_path) == t.key:
+            status = "failed"
+            with open(t.failed_path, encoding="utf-8") as f:
+                reason = json.load(f).get("reason", "")
+        else:
+            status, reason = "pending", ""
+        rows.append({"candidate": t.candidate, "label": t.label, "status": status,
+                     "reason": reason, "run_file": t.run_path})
+    return rows
