@@ -13,6 +13,12 @@ from .io.assemble import read_trajectory
 from .io.store import ingest, open_run
 from .io.write import write_extxyz, write_lammps_dump, write_xdatcar
 from .arrhenius import ArrheniusFit, ArrheniusPoint, fit_arrhenius
+from .msd import ChargeMSDCurve, MSDCurve, compute_charge_msd, compute_msd
+from .diffusion import (ChargeTransportEstimate, DiffusionEstimate, choose_fit_window,
+                        estimate_charge_transport, estimate_diffusion)
+from .hops import HOP_METHODS, HopSummary, SiteCensus, count_hops
+from .trust import (VERDICTS, CheckResult, RunAssessment, TrustThresholds, assess_run,
+                    expected_relative_error, kinetic_temperature_K, poisson_upper_limit)
 from .synth import (CampaignTruth, GroundTruth, SyntheticRun, arrhenius_campaign, hopping_run,
                     vacancy_kmc_run, write_run)
 from .conductivity import (CAUTIONS, CandidateSummary, Conductivity, ConductivityTiers,
@@ -35,6 +41,12 @@ __all__ = [
     "collective_conductivity", "default_charge", "extrapolate_conductivity", "nernst_einstein",
     "nernst_einstein_from_internal", "sigma_from_charge_msd_slope", "summarize_candidate",
     "volume_at",
+    "ChargeMSDCurve", "MSDCurve", "compute_charge_msd", "compute_msd",
+    "ChargeTransportEstimate", "DiffusionEstimate", "choose_fit_window",
+    "estimate_charge_transport", "estimate_diffusion",
+    "HOP_METHODS", "HopSummary", "SiteCensus", "count_hops",
+    "VERDICTS", "CheckResult", "RunAssessment", "TrustThresholds", "assess_run",
+    "expected_relative_error", "kinetic_temperature_K", "poisson_upper_limit",
     "CampaignTruth", "GroundTruth", "SyntheticRun", "arrhenius_campaign", "hopping_run",
     "vacancy_kmc_run", "write_run",
 ]

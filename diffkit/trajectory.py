@@ -280,7 +280,7 @@ class Trajectory:
         indices : (k,) int
             Atom indices of the block.
         positions : (n_frames, k, 3) float, Å
-            Their unwrapped positions.
+            Their unwrapped positions (may be a read-only view: do not modify).
         """
         if atoms is None:
             atoms = np.arange(self.n_atoms)
@@ -297,10 +297,13 @@ class Trajectory:
 
     @staticmethod
     def _read_atoms(source, idx):
-        if isinstance(source, np.ndarray):
-            return np.asarray(source[:, idx, :], dtype=float)
         lo, hi = int(idx.min()), int(idx.max()) + 1
-        if hi - lo == len(idx) and np.all(np.diff(idx) == 1):
+        contiguous = hi - lo == len(idx) and bool(np.all(np.diff(idx) == 1))
+        if isinstance(source, np.ndarray):
+            if contiguous and source.dtype == np.float64:
+                return source[:, lo:hi, :]  # a view: no copy (callers do not write into it)
+            return np.asarray(source[:, idx, :], dtype=float)
+        if contiguous:
             return np.asarray(source[:, lo:hi, :], dtype=float)
         if hi - lo <= 4 * len(idx):  # read the span once and pick
             return np.asarray(source[:, lo:hi, :], dtype=float)[:, idx - lo, :]

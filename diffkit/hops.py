@@ -1,0 +1,1097 @@
+"""Hop census: when, where and how far the mobile ions jumped.
+
+Two methods, both streaming over blocks of atoms (:meth:`Trajectory.iter_atom_blocks`):
+
+``method="displacement"`` (default, needs no sites)
+    Each ion's path is smoothed with a short running median (edge preserving,
+    so a step stays a step) and followed frame by frame against a *resting
+    place* (the running mean of the smoothed positions of the current stay).
+    A hop is counted when the smoothed position settles — for ``settle_frames``
+    consecutive frames, close to each other — more than ``threshold_A`` away
+    from the resting place. The hop frame is the first settled frame.
+
+``method="sites"``
+    Sites are the peaks of the time-averaged density of the mobile species on
+    a periodic grid (Gaussian-smoothed histogram of wrapped positions, peaks
+    closer than the threshold merged, centres refined by centroids). Each
+    smoothed position is assigned to the nearest site only inside its *core*
+    (radius ``d_nn − threshold_A``, so entering a neighbour's core needs a move
+    of at least ``threshold_A``); outside every core the previous site is kept
+    (hysteresis), so rattling at a boundary is not a hop. Visits shorter than
+    ``settle_frames`` are dropped; every remaining change of site is a hop.
+    Reports site occupancies and site-to-site hop counts.
+
+Automatic settings (each reported in the result):
+
+* ``threshold_A`` = ``threshold_fraction`` (0.6) × the typical shortest
+  distance between distinct resting places seen. A coarse scouting pass
+  (paths block-medianed over ~0.1 ps, followed with a provisional threshold of
+  4 × the vibration rms) finds stays; the distances between consecutive stays
+  that both last ≥ 3 blocks are the candidate lengths (with fewer than 10 of
+  them, the nearest distances between different ions' resting places join
+  in); the typical shortest is the median of the candidates ≤ 1.25 × their
+  10th percentile.
+* The running-median width and ``settle_frames`` are the finest pair, in the
+  order (1, 1), (3, 2), (5, 2), (7, 2), ..., for which vibration alone is
+  expected to cause fewer than 0.1 false hops in the whole run: n_ion_frames ×
+  P(|g| > reach / s_w) (× 2 with ``settle_frames=1``), g a 3-vector of unit
+  Gaussians and s_w the noise of the smoothed path measured inside long stays.
+  The time resolution is reported: stays shorter than it are merged (A→B→C
+  seen as one hop A→C).
+
+The effective number of hops is N_eff = Σ_i |R_i(end) − R_i(start)|² / a², with
+R the resting place (or site) of ion i and a the mean jump distance (He, Zhu,
+Epstein & Mo, npj Comput. Mater. 4, 18 (2018)); resting places rather than raw
+positions keep vibration (≈ 6σ² per ion) out of it.
+
+See docs/methods_hops_and_verdict.md for the equations and thresholds.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy import ndimage as _ndi
+from scipy import spatial as _spatial
+from scipy import stats as _stats
+
+from .errors import InputError, UsageError
+from .results import to_plain
+from .unwrap import cell_heights
+
+__all__ = ["HopSummary", "SiteCensus", "count_hops", "HOP_METHODS"]
+
+#: Accepted values of ``method=``.
+HOP_METHODS = ("displacement", "sites")
+
+#: Default threshold as a fraction of the shortest distance between resting places.
+DEFAULT_THRESHOLD_FRACTION = 0.6
+#: Scouting: a resting place is distinct when more than this many vibration rms away.
+_SCOUT_Z = 4.0
+#: Scouting block length, ps (about one vibrational period), and minimum in frames.
+_SCOUT_BLOCK_PS = 0.1
+_SCOUT_BLOCK_MIN = 4
+#: Running-median windows tried, finest first.
+_WINDOWS = (1, 3, 5, 7, 9, 13, 17, 25, 37, 51, 75, 101)
+#: Expected hops caused by vibration alone over the whole run that the automatic
+#: resolution accepts.
+_FALSE_HOP_BUDGET = 0.1
+#: The resting place is the mean of at most this many latest frames of the stay.
+_ANCHOR_MEMORY = 200
+#: Ions and frames used to measure the smoothed-path noise.
+_NOISE_SAMPLE_IONS = 32
+_NOISE_SAMPLE_FRAMES = 20_000
+#: Largest number of wrapped positions histogrammed for the site density.
+_DENSITY_POINTS = 2_000_000
+#: Largest number of grid bins of the site density.
+_DENSITY_MAX_BINS = 4_000_000
+
+
+# =========================================================================== results
+@dataclass(frozen=True, eq=False, repr=False)
+class SiteCensus:
+    """Sites of the mobile species and the traffic between them (``method="sites"``).
+
+    Attributes
+    ----------
+    site_positions_A : (n_sites, 3) float, Å
+        Site centres, Cartesian, in the mean cell.
+    core_radius_A : float, Å
+        Radius inside which a position is assigned to a site.
+    nearest_site_distance_A : float, Å
+        Typical (10th percentile) distance from a site to its nearest neighbour.
+    site_occupancy : (n_sites,) float
+        Mean number of ions assigned to each site over the run.
+    pair_from_site, pair_to_site : (n_pairs,) int
+        Site pairs with at least one hop, from → to.
+    pair_hops : (n_pairs,) int
+        Number of hops from ``pair_from_site`` to ``pair_to_site``.
+    hop_from_site, hop_to_site : (n_hops,) int
+        Sites of every hop, in the order of ``HopSummary.hop_frames``.
+    """
+
+    site_positions_A: np.ndarray
+    core_radius_A: float
+    nearest_site_distance_A: float
+    site_occupancy: np.ndarray
+    pair_from_site: np.ndarray
+    pair_to_site: np.ndarray
+    pair_hops: np.ndarray
+    hop_from_site: np.ndarray
+    hop_to_site: np.ndarray
+
+    @property
+    def n_sites(self):
+        """Number of sites found."""
+        return int(len(self.site_positions_A))
+
+    def to_dict(self):
+        """Plain JSON-ready dict."""
+        out = to_plain(self)
+        out["n_sites"] = self.n_sites
+        return out
+
+    def __repr__(self):
+        busy = int(np.sum(self.site_occupancy > 0.5 / max(len(self.site_occupancy), 1)))
+        return (f"SiteCensus({self.n_sites} sites, nearest {self.nearest_site_distance_A:.3g} Å, "
+                f"core {self.core_radius_A:.3g} Å, {busy} occupied, "
+                f"{len(self.pair_hops)} site pairs with hops)")
+
+
+@dataclass(frozen=True, eq=False, repr=False)
+class HopSummary:
+    """Hops of one mobile species in one run.
+
+    Attributes
+    ----------
+    species : str
+    method : str
+        ``"displacement"`` or ``"sites"``.
+    reference : str
+        Drift reference subtracted before detection ("framework", "all", "none").
+    n_ions : int
+    ion_indices : (n_ions,) int
+        Atom indices of the ions, in the order of ``hops_per_ion``.
+    n_frames : int
+    frame_interval_ps, duration_ps : float, ps
+    total_hops : int
+    hops_per_ion : (n_ions,) int
+    fraction_ions_hopped : float
+        Fraction of ions with at least one hop.
+    hop_rate_per_ion_per_ps : float, 1/ps
+        total_hops / (n_ions × duration_ps).
+    mean_jump_distance_A : float, Å
+        Mean distance between the resting places (sites) before and after a
+        hop; NaN without hops.
+    total_squared_displacement_A2 : float, Å²
+        Σ_i |R_i(end) − R_i(start)|² over resting places (sites).
+    n_effective_hops : float
+        N_eff = total_squared_displacement_A2 / mean_jump_distance_A² (0 without hops).
+    hop_times_ps : (n_hops,) float, ps
+        Time of each hop (trajectory clock), sorted.
+    hop_frames : (n_hops,) int
+        Frame index of each hop (first frame settled at the new place).
+    hop_ions : (n_hops,) int
+        Atom index of the ion of each hop.
+    hop_jump_distances_A : (n_hops,) float, Å
+    threshold_A : float, Å
+        Distance a settled move must exceed to count as a hop.
+    threshold_basis : str
+        Where the threshold came from, in words.
+    resting_place_distance_A : float, Å
+        Typical shortest distance between distinct resting places seen (NaN if
+        none were seen); the default threshold is ``threshold_fraction`` × it.
+    smoothing_frames : int
+        Width of the running median (1 = none).
+    settle_frames : int
+        Consecutive settled frames needed at a new place.
+    time_resolution_ps : float, ps
+        Stays shorter than this are merged into one hop.
+    vibration_rms_A : float, Å
+        Thermal vibration about the resting places, rms per axis (measured).
+    max_frame_step_A : float, Å
+        Largest displacement of one ion between consecutive frames.
+    sites : SiteCensus or None
+        Site analysis (``method="sites"`` only).
+    message : str
+        Plain-words summary and any caveat.
+    """
+
+    species: str
+    method: str
+    reference: str
+    n_ions: int
+    ion_indices: np.ndarray
+    n_frames: int
+    frame_interval_ps: float
+    duration_ps: float
+    total_hops: int
+    hops_per_ion: np.ndarray
+    fraction_ions_hopped: float
+    hop_rate_per_ion_per_ps: float
+    mean_jump_distance_A: float
+    total_squared_displacement_A2: float
+    n_effective_hops: float
+    hop_times_ps: np.ndarray
+    hop_frames: np.ndarray
+    hop_ions: np.ndarray
+    hop_jump_distances_A: np.ndarray
+    threshold_A: float
+    threshold_basis: str
+    resting_place_distance_A: float
+    smoothing_frames: int
+    settle_frames: int
+    time_resolution_ps: float
+    vibration_rms_A: float
+    max_frame_step_A: float
+    sites: SiteCensus | None = None
+    message: str = ""
+
+    def to_dict(self):
+        """Plain JSON-ready dict (arrays become lists, NaN becomes None)."""
+        return to_plain(self)
+
+    def __repr__(self):
+        a = ("n/a" if not math.isfinite(self.mean_jump_distance_A)
+             else f"{self.mean_jump_distance_A:.3g} Å")
+        return (f"HopSummary({self.species}, method={self.method!r}: {self.total_hops} hops by "
+                f"{self.fraction_ions_hopped:.0%} of {self.n_ions} ions in "
+                f"{self.duration_ps:g} ps, "
+                f"rate {self.hop_rate_per_ion_per_ps:.4g}/ion/ps, a={a}, "
+                f"N_eff={self.n_effective_hops:.4g}, threshold {self.threshold_A:.3g} Å, "
+                f"resolution {self.time_resolution_ps:.3g} ps)")
+
+
+# =========================================================================== small tools
+def _check_positive(name, value, *, allow_none=True, integer=False):
+    if value is None and allow_none:
+        return None
+    if integer:
+        if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:
+            raise UsageError(f"{name} must be a whole number ≥ 1, got {value!r}")
+        return int(value)
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise UsageError(f"{name} must be a positive number, got {value!r}") from None
+    if not (math.isfinite(v) and v > 0):
+        raise UsageError(f"{name} must be a positive number, got {value!r}")
+    return v
+
+
+def running_median(x, width):
+    """Running median along axis 0 (time), edges padded by repetition.
+
+    Parameters
+    ----------
+    x : (n_frames, ...) float
+    width : int
+        Odd window length in frames (1 returns ``x`` itself).
+
+    Returns
+    -------
+    (n_frames, ...) float
+    """
+    n = x.shape[0]
+    if width <= 1 or n < 2:
+        return x
+    h = width // 2
+    pad = np.concatenate([np.repeat(x[:1], h, axis=0), x, np.repeat(x[-1:], h, axis=0)])
+    if width == 3:
+        a, b, c = pad[:n], pad[1:n + 1], pad[2:n + 2]
+        lo, hi = np.minimum(a, b), np.maximum(a, b)
+        return np.maximum(lo, np.minimum(hi, c))
+    if width == 5:
+        a, b, c, d, e = (pad[i:i + n] for i in range(5))
+        lo = np.maximum(np.minimum(a, b), np.minimum(c, d))
+        hi = np.minimum(np.maximum(a, b), np.maximum(c, d))
+        lo, hi = np.minimum(lo, hi), np.maximum(lo, hi)
+        return np.maximum(lo, np.minimum(hi, e))
+    moved = np.moveaxis(x, 0, -1)
+    out = _ndi.median_filter(np.ascontiguousarray(moved),
+                             size=(1,) * (x.ndim - 1) + (width,), mode="nearest")
+    return np.moveaxis(out, -1, 0)
+
+
+def _chi3_tail(z):
+    """P(|g| > z) for a 3-vector g of independent unit Gaussians (chi, 3 dof)."""
+    return float(_stats.chi.sf(z, 3)) if z > 0 else 1.0
+
+
+def _expected_false_hops(n_obs, reach, noise_sd, settle):
+    """Expected hops that vibration alone would cause in ``n_obs`` ion-frames.
+
+    Model (calibrated on pure Gaussian noise through the tracker, see
+    docs/methods_hops_and_verdict.md): with ``settle == 1`` each crossing of
+    ``reach`` makes an out-and-back pair, 2 × chi3-tail; with ``settle >= 2``
+    the measured rate was 0.2–0.8 × the chi3 tail of the smoothed path, taken as 1 ×.
+    """
+    if noise_sd <= 0:
+        return 0.0
+    p = _chi3_tail(reach / noise_sd)
+    return n_obs * p * (2.0 if settle == 1 else 1.0)
+
+
+def _block_medians(x, b):
+    """Median over consecutive blocks of ``b`` frames: (n // b, ...)."""
+    if b <= 1:
+        return x
+    n = (x.shape[0] // b) * b
+    if n == 0:
+        return x[:1].copy()
+    blocks = x[:n].reshape(n // b, b, *x.shape[1:])
+    if b == 4:     # mean of the middle two, by min/max
+        p, q, r, u = blocks[:, 0], blocks[:, 1], blocks[:, 2], blocks[:, 3]
+        lo = np.maximum(np.minimum(p, q), np.minimum(r, u))
+        hi = np.minimum(np.maximum(p, q), np.maximum(r, u))
+        return 0.5 * (lo + hi)
+    return np.median(blocks, axis=1)
+
+
+def _typical_shortest(lengths):
+    """Typical length of the shortest population: median of values ≤ 1.25 × the 10th percentile."""
+    lengths = np.asarray(lengths, float)
+    if len(lengths) == 0:
+        return float("nan")
+    q10 = float(np.percentile(lengths, 10))
+    return float(np.median(lengths[lengths <= 1.25 * q10]))
+
+
+# =========================================================================== the tracker
+def _follow_resting_places(m, thr, settle, lookahead=32):
+    """Find hops by following each ion's resting place; all ions of a block at once.
+
+    The resting place at frame t is the mean of the smoothed positions of the
+    current stay over its last ``_ANCHOR_MEMORY`` frames before t (cumulative
+    sums make it available at any frame). A hop happens at the first frame t
+    where the smoothed position and the next ``settle − 1`` ones are farther
+    than ``thr`` from it and within ``thr`` of the position at t. Each step
+    looks ``lookahead`` frames ahead of every ion for its next hop, so the
+    Python work grows with the hops per ion, not with frames × ions.
+
+    Parameters
+    ----------
+    m : (n_frames, k, 3) float, Å
+        Smoothed positions.
+    thr : float, Å
+    settle : int
+    lookahead : int
+
+    Returns
+    -------
+    frames, ions : (n_hops,) int
+        Hop frame and local ion index, sorted by ion then time.
+    """
+    n, k, _ = m.shape
+    thr2 = thr * thr
+    mk = np.ascontiguousarray(m.transpose(1, 0, 2)).reshape(-1, 3)      # ion-major rows
+    Sk = np.zeros((k, n + 1, 3))
+    np.cumsum(m.transpose(1, 0, 2), axis=1, out=Sk[:, 1:])
+    Sk = Sk.reshape(-1, 3)
+    start = np.zeros(k, dtype=np.int64)
+    cur = np.ones(k, dtype=np.int64)
+    limit = n - settle + 1
+    frames, ions = [], []
+    steps = np.arange(max(1, int(lookahead)))
+    L = len(steps)
+    mem = _ANCHOR_MEMORY
+    active = np.flatnonzero(cur < limit)
+    while len(active):
+        T = cur[active, None] + steps[None, :]                       # (ka, L)
+        inside = T < limit
+        np.minimum(T, max(limit - 1, 1), out=T)
+        lo = np.maximum(start[active, None], T - mem)
+        base_m = (active * n)[:, None]
+        base_s = (active * (n + 1))[:, None]
+        A = (Sk[base_s + T] - Sk[base_s + lo]) / (T - lo)[..., None]
+        mt = mk[base_m + T]
+        d = mt - A
+        far = np.einsum("ali,ali->al", d, d) > thr2
+        far &= inside
+        for j in range(1, settle):
+            mn = mk[base_m + np.minimum(T + j, n - 1)]
+            dn = mn - A
+            dc = mn - mt
+            far &= np.einsum("ali,ali->al", dn, dn) > thr2
+            far &= np.einsum("ali,ali->al", dc, dc) <= thr2
+        has = far.any(axis=1)
+        if has.any():
+            hi = active[has]
+            th = T[has, np.argmax(far[has], axis=1)]
+            frames.append(th)
+            ions.append(hi)
+            start[hi] = th
+            cur[hi] = th + 1
+            cur[active[~has]] += L
+        else:
+            cur[active] += L
+        active = active[cur[active] < limit]
+    if not frames:
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    frames = np.concatenate(frames)
+    ions = np.concatenate(ions)
+    order = np.lexsort((frames, ions))
+    return frames[order], ions[order]
+
+
+def _stay_centres(m, frames, ions, thr):
+    """Centre of every stay: mean of its smoothed positions within ``thr`` of the stay mean.
+
+    Parameters
+    ----------
+    m : (n_frames, k, 3) float, Å
+    frames, ions : (n_hops,) int
+        Hops sorted by ion, then time.
+    thr : float, Å
+
+    Returns
+    -------
+    centres : (n_hops + k, 3) float, Å
+        Stays ordered by ion then time: ion i's stays are rows
+        ``first[i] .. first[i] + hops_i``.
+    first : (k,) int
+        Row of each ion's first stay.
+    lengths : (n_hops + k,) int
+        Frames per stay.
+    sid : (n_frames, k) int
+        Stay row of every frame.
+    """
+    n, k, _ = m.shape
+    counts = np.bincount(ions, minlength=k)
+    first = np.concatenate([[0], np.cumsum(counts + 1)[:-1]])
+    mark = np.zeros((n, k), dtype=np.int64)
+    np.add.at(mark, (frames, ions), 1)
+    sid = np.cumsum(mark, axis=0) + first[None, :]
+    g = sid.ravel()
+    n_st = int(first[-1] + counts[-1] + 1)
+    lengths = np.bincount(g, minlength=n_st)
+    flat = m.reshape(-1, 3)
+    g3 = (g[:, None] * 3 + np.arange(3)[None, :]).ravel()
+
+    def sums(weights):
+        return np.bincount(g3, weights=weights.ravel(), minlength=3 * n_st).reshape(n_st, 3)
+
+    centre = sums(flat) / np.maximum(lengths, 1)[:, None]
+    for _ in range(2):
+        d = flat - centre[g]
+        keep = np.einsum("ij,ij->i", d, d) <= thr * thr
+        kept = np.bincount(g, weights=keep, minlength=n_st)
+        new = sums(flat * keep[:, None])
+        ok = kept > 0
+        centre[ok] = new[ok] / kept[ok, None]
+    return centre, first, lengths, sid
+
+
+def _hop_rows(first, ions):
+    """Row of the stay each hop leaves (hops sorted by ion, then time)."""
+    rank = np.arange(len(ions)) - np.searchsorted(ions, ions)
+    return first[ions] + rank
+
+
+# =========================================================================== scouting
+@dataclass
+class _Scout:
+    """What the coarse pass learns: vibration, jump lengths, resting places."""
+
+    jumps: list = field(default_factory=list)
+    starts: list = field(default_factory=list)
+    lag_sigma: list = field(default_factory=list)
+    hops: int = 0
+    max_step: float = 0.0
+    sample: tuple | None = None
+
+
+def _lag_sigma(x, lag, max_values=300_000):
+    """Robust per-axis vibration rms from differences ``lag`` frames apart: (value, count).
+
+    The median absolute difference of at most ``max_values`` differences
+    (evenly strided) over sqrt(2), scaled to a Gaussian sd by 1.4826.
+    """
+    if x.shape[0] <= lag:
+        return 0.0, 0
+    d = np.abs(x[lag:] - x[:-lag]).ravel()
+    step = max(1, d.size // max_values)
+    d = d[::step]
+    return float(1.4826 * np.median(d) / math.sqrt(2.0)), int(d.size)
+
+
+def _scout_block(pos, b, lag, scout):
+    """Coarse pass over one block: block medians followed with a vibration-based threshold."""
+    step = np.diff(pos, axis=0)
+    if step.size:
+        scout.max_step = max(scout.max_step,
+                             float(np.sqrt(np.einsum("tki,tki->tk", step, step).max())))
+    del step
+    sig, cnt = _lag_sigma(pos, lag)
+    scout.lag_sigma.append((sig, cnt))
+    thr0 = max(_SCOUT_Z * sig, 1e-3)
+    xd = _block_medians(pos, b)
+    frames, ions = _follow_resting_places(xd, thr0, 2, lookahead=16)
+    centres, first, lengths, sid = _stay_centres(xd, frames, ions, thr0)
+    scout.hops += len(frames)
+    scout.starts.append(centres[first])
+    if len(frames):
+        rows = _hop_rows(first, ions)
+        long_ = (lengths[rows] >= 3) & (lengths[rows + 1] >= 3)
+        vec = centres[rows + 1] - centres[rows]
+        length = np.sqrt(np.einsum("ij,ij->i", vec, vec))
+        scout.jumps.append(length[long_ & (length > thr0)])
+    if scout.sample is None:
+        ks = min(_NOISE_SAMPLE_IONS, pos.shape[1])
+        nd = min(len(xd), max(1, _NOISE_SAMPLE_FRAMES // b))
+        keep = (ions < ks) & (frames < nd)
+        scout.sample = (pos[:nd * b, :ks].copy(), b, frames[keep], ions[keep],
+                        centres, sid[:nd, :ks])
+
+
+class _NoiseLadder:
+    """Measured per-axis noise of the running median of each width, inside long stays."""
+
+    def __init__(self, sample, fallback_sigma):
+        self.fallback = fallback_sigma
+        self.cache = {}
+        self.ok = False
+        if sample is None:
+            return
+        x, b, frames, ions, centres, sid = sample
+        nd, ks = sid.shape
+        if nd < 8:
+            return
+        # distance (in blocks) from each block to the nearest scouted hop of the same ion
+        dist = np.full((nd, ks), nd, dtype=np.int64)
+        pos = np.arange(nd)
+        for i in range(ks):
+            hf = np.sort(frames[ions == i])
+            if len(hf):
+                j = np.searchsorted(hf, pos)
+                left = pos - hf[np.maximum(j - 1, 0)]
+                left = np.where(j > 0, left, nd)
+                right = hf[np.minimum(j, len(hf) - 1)] - pos
+                right = np.where(j < len(hf), right, nd)
+                dist[:, i] = np.minimum(np.abs(left), np.abs(right))
+        self.x, self.b, self.dist = x, b, dist
+        self.ref = np.repeat(centres[sid], b, axis=0)            # (nd*b, ks, 3)
+        self.ok = True
+
+    def __call__(self, w):
+        if w in self.cache:
+            return self.cache[w]
+        value = None
+        if self.ok:
+            margin = 2 + (w // 2 + self.b - 1) // self.b
+            good_blocks = self.dist >= margin
+            good_blocks[:margin] = False
+            good_blocks[-margin:] = False
+            if good_blocks.sum() >= 20:
+                good = np.repeat(good_blocks, self.b, axis=0)
+                r = np.abs(running_median(self.x, w) - self.ref)[good]
+                value = float(1.4826 * np.median(r))
+        if value is None:
+            value = self.fallback * (1.0 if w == 1 else 1.2533 / math.sqrt(w))
+        self.cache[w] = value
+        return value
+
+
+def _nearest_distinct(points, cell, min_dist):
+    """Distance from each point to its nearest other point farther than ``min_dist`` (min image)."""
+    p = np.asarray(points, float)
+    if len(p) > 2000:
+        p = p[np.linspace(0, len(p) - 1, 2000).astype(int)]
+    n = len(p)
+    if n < 2:
+        return np.zeros(0)
+    inv = np.linalg.inv(cell)
+    frac = p @ inv
+    out = np.full(n, np.inf)
+    for s in range(0, n, 256):
+        d = frac[None, :, :] - frac[s:s + 256, None, :]
+        d -= np.round(d)
+        r = np.linalg.norm(d @ cell, axis=-1)
+        r[r <= min_dist] = np.inf
+        out[s:s + 256] = r.min(axis=1)
+    return out[np.isfinite(out)]
+
+
+# =========================================================================== sites
+def _find_sites(points_frac, cell, sigma, merge_A):
+    """Peaks of the periodic density of wrapped fractional points.
+
+    Returns
+    -------
+    (n_sites, 3) float
+        Fractional site centres in [0, 1).
+    """
+    heights = cell_heights(cell)
+    h = float(np.clip(sigma / 2.0, 0.05, 0.25))
+    nb = np.maximum(8, np.ceil(heights / h)).astype(int)
+    while np.prod(nb.astype(float)) > _DENSITY_MAX_BINS:
+        nb = np.maximum(8, (nb * 0.8).astype(int))
+    f = points_frac - np.floor(points_frac)
+    ijk = np.minimum((f * nb).astype(np.int64), nb - 1)
+    flat = np.ravel_multi_index((ijk[:, 0], ijk[:, 1], ijk[:, 2]), tuple(nb))
+    counts = np.bincount(flat, minlength=int(np.prod(nb))).reshape(tuple(nb)).astype(float)
+    bin_A = heights / nb
+    dens = _ndi.gaussian_filter(counts, np.maximum(0.5, 0.5 * max(sigma, 0.05) / bin_A),
+                                mode="wrap")
+    half = np.maximum(1, np.round(0.5 * merge_A / bin_A)).astype(int)
+    peak = dens == _ndi.maximum_filter(dens, size=tuple(2 * half + 1), mode="wrap")
+    peak &= dens > 1e-3 * dens.max()
+    idx = np.argwhere(peak)
+    if len(idx) == 0:
+        return np.zeros((0, 3))
+    strength = dens[tuple(idx.T)]
+    # centroid of the counts in a periodic box of ±2.5 σ (at most ±0.4 × the merge
+    # distance) around each peak, twice (the second box centred on the first centroid)
+    r = np.maximum(1, np.round(min(2.5 * max(sigma, 0.05), 0.4 * merge_A) / bin_A)).astype(int)
+    offs = np.stack(np.meshgrid(*[np.arange(-r[j], r[j] + 1) for j in range(3)],
+                                indexing="ij"), axis=-1).reshape(-1, 3)
+    frac = (idx + 0.5) / nb
+    for _ in range(2):
+        at = np.floor(frac * nb).astype(np.int64)
+        cells_ = at[:, None, :] + offs[None, :, :]
+        around = cells_ % nb
+        wts = counts[around[..., 0], around[..., 1], around[..., 2]]
+        tot = wts.sum(axis=1)
+        mean = (wts[..., None] * ((cells_ + 0.5) / nb)).sum(axis=1)
+        mean /= np.maximum(tot, 1e-300)[:, None]
+        frac = np.where((tot > 0)[:, None], mean, frac)
+    # merge peaks closer than merge_A, strongest first
+    order = np.argsort(-strength)
+    frac = frac[order] % 1.0
+    shifts = np.array([(i, j, k) for i in (-1, 0, 1) for j in (-1, 0, 1) for k in (-1, 0, 1)])
+    imgs = (frac[None, :, :] + shifts[:, None, :]).reshape(-1, 3) @ cell
+    neighbours = _spatial.cKDTree(imgs).query_ball_point(frac @ cell, r=merge_A)
+    gone = np.zeros(len(frac), dtype=bool)
+    keep = []
+    for j in range(len(frac)):
+        if gone[j]:
+            continue
+        keep.append(j)
+        nb_ = np.asarray(neighbours[j], dtype=np.int64) % len(frac)
+        gone[nb_[nb_ > j]] = True
+    return frac[keep]
+
+
+class _SiteLocator:
+    """Which site's core (if any) holds a position; minimum image in the mean cell.
+
+    Cores do not overlap (radius ≤ 0.45 × the nearest site distance), so at
+    most one site qualifies. Positions are binned on a coarse fractional grid;
+    each bin lists the sites whose core reaches into it, and only those are
+    measured.
+    """
+
+    def __init__(self, frac_sites, cell, core):
+        self.cell = np.asarray(cell, float)
+        self.inv = np.linalg.inv(self.cell)
+        self.frac = np.asarray(frac_sites, float) % 1.0
+        self.n = len(self.frac)
+        self.cart = self.frac @ self.cell
+        self.core = float(core)
+        heights = cell_heights(self.cell)
+        self.nb = np.maximum(1, np.floor(heights / max(self.core, 0.25))).astype(int)
+        grid = np.stack(np.meshgrid(*[np.arange(m) for m in self.nb], indexing="ij"),
+                        axis=-1).reshape(-1, 3)
+        centres = ((grid + 0.5) / self.nb) @ self.cell
+        edges = self.cell / self.nb[:, None]
+        corners = np.array([[i, j, k] for i in (-1, 1) for j in (-1, 1) for k in (-1, 1)])
+        half_diag = 0.5 * float(np.max(np.linalg.norm(corners @ edges, axis=1)))
+        shifts = np.array([(i, j, k) for i in (-1, 0, 1) for j in (-1, 0, 1) for k in (-1, 0, 1)])
+        imgs = (self.frac[None, :, :] + shifts[:, None, :]).reshape(-1, 3) @ self.cell
+        tree = _spatial.cKDTree(imgs)
+        k = min(8, len(imgs))
+        _, near = tree.query(centres, k=k, distance_upper_bound=self.core + half_diag + 1e-9)
+        near = np.asarray(near).reshape(len(centres), k)
+        cand = np.where(near < len(imgs), near % self.n, -1)
+        used = np.flatnonzero((cand >= 0).any(axis=0))
+        self.cand = cand[:, :max(1, used.max() + 1 if len(used) else 1)]
+
+    def core_site(self, pos, inv_cells=None, chunk=200_000):
+        """Site whose core holds each position, or -1.
+
+        Parameters
+        ----------
+        pos : (n, k, 3) float, Å
+        inv_cells : (n, 3, 3) float, optional
+            Per-frame inverse cells (variable cell); else the mean cell is used.
+
+        Returns
+        -------
+        (n, k) int
+        """
+        shape = pos.shape[:-1]
+        if inv_cells is None:
+            frac = pos.reshape(-1, 3) @ self.inv
+        else:
+            frac = np.einsum("tka,tab->tkb", pos, inv_cells).reshape(-1, 3)
+        frac -= np.floor(frac)
+        out = np.full(len(frac), -1, dtype=np.int64)
+        core2 = self.core * self.core
+        for s in range(0, len(frac), chunk):
+            f = frac[s:s + chunk]
+            ijk = np.minimum((f * self.nb).astype(np.int64), self.nb - 1)
+            b = np.ravel_multi_index((ijk[:, 0], ijk[:, 1], ijk[:, 2]), tuple(self.nb))
+            c = self.cand[b]                                         # (m, width)
+            d = self.frac[np.maximum(c, 0)] - f[:, None, :]
+            d -= np.round(d)
+            d = d @ self.cell
+            r2 = np.einsum("mci,mci->mc", d, d)
+            r2[c < 0] = np.inf
+            j = np.argmin(r2, axis=1)
+            rows = np.arange(len(f))
+            hit = r2[rows, j] <= core2
+            out[s:s + chunk] = np.where(hit, c[rows, j], -1)
+        return out.reshape(shape)
+
+    def min_image(self, vec):
+        """Minimum-image version of Cartesian vectors (..., 3) in the mean cell."""
+        f = vec @ self.inv
+        f -= np.round(f)
+        return f @ self.cell
+
+
+def _site_changes(label, decisive, settle):
+    """Clean one ion's site labels into hops.
+
+    Parameters
+    ----------
+    label : (n,) int
+        Nearest site per frame.
+    decisive : (n,) bool
+        True where the position is inside that site's core.
+    settle : int
+        Visits with fewer decisive frames are dropped (the ion is taken to have
+        stayed where it was).
+
+    Returns
+    -------
+    frames, from_site, to_site : (n_hops,) int
+        First decisive frame at the new site, and the sites.
+    first_site : int
+        Site at the start (-1 if the ion never entered a core).
+    """
+    fr = np.flatnonzero(decisive)
+    if len(fr) == 0:
+        return np.zeros(0, int), np.zeros(0, int), np.zeros(0, int), -1
+    lab = label[fr]
+    if settle > 1:
+        brk = np.flatnonzero(lab[1:] != lab[:-1]) + 1
+        starts = np.concatenate([[0], brk])
+        lengths = np.diff(np.concatenate([starts, [len(lab)]]))
+        valid_run = lengths >= settle
+        if not valid_run.any():
+            valid_run[np.argmax(lengths)] = True
+        valid = np.repeat(valid_run, lengths)
+        src = np.where(valid, np.arange(len(lab)), -1)
+        src = np.maximum.accumulate(src)
+        src[src < 0] = int(np.argmax(valid))
+        lab = lab[src]
+    brk = np.flatnonzero(lab[1:] != lab[:-1]) + 1
+    return fr[brk], lab[brk - 1], lab[brk], int(lab[0])
+
+
+def _build_sites(stream, cells, sigma, thr, fallback_sep):
+    """Sites from the density of the mobile species: (locator, d_nn, core radius)."""
+    mean_cell = cells.mean(axis=0)
+    const_cell = bool(np.allclose(cells, cells[:1]))
+    inv_cells = None if const_cell else np.linalg.inv(cells)
+    inv_mean = np.linalg.inv(mean_cell)
+    stride = max(1, int(math.ceil(stream.n_frames * stream.n_atoms / _DENSITY_POINTS)))
+    pts = []
+    for _, pos in stream():
+        p = pos[::stride]
+        if inv_cells is None:
+            pts.append(p.reshape(-1, 3) @ inv_mean)
+        else:
+            pts.append(np.einsum("tka,tab->tkb", p, inv_cells[::stride]).reshape(-1, 3))
+    frac_sites = _find_sites(np.concatenate(pts), mean_cell, sigma, merge_A=thr)
+    if len(frac_sites) == 0:
+        raise InputError("count_hops(method='sites'): no sites found in the density of the "
+                         "species; use method='displacement'")
+    cart = frac_sites @ mean_cell
+    if len(frac_sites) > 1:
+        shifts = np.array([(i, j, k) for i in (-1, 0, 1) for j in (-1, 0, 1) for k in (-1, 0, 1)])
+        imgs = (frac_sites[None, :, :] + shifts[:, None, :]).reshape(-1, 3) @ mean_cell
+        d, _ = _spatial.cKDTree(imgs).query(cart, k=2)
+        d_nn = float(_typical_shortest(d[:, 1]))
+    else:
+        d_nn = float(fallback_sep)
+    core = min(d_nn - thr, 0.45 * d_nn)
+    if not core > 0:
+        core = 0.4 * d_nn
+    locator = _SiteLocator(frac_sites, mean_cell, core)
+    return locator, d_nn, core
+
+
+# =========================================================================== streaming
+class _Stream:
+    """Blocks of the species' positions minus the drift reference; cached if one block."""
+
+    def __init__(self, traj, idx, ref_track, memory_budget_MB):
+        self.traj, self.idx, self.ref = traj, idx, ref_track
+        self.block = max(1, traj.block_size_for(memory_budget_MB, copies=8))
+        self.n_blocks = -(-len(idx) // self.block)
+        self.n_frames, self.n_atoms = traj.n_frames, len(idx)
+        self._cache = None
+
+    def __call__(self):
+        if self._cache is not None:
+            yield from self._cache
+            return
+        keep = []
+        for ids, pos in self.traj.iter_atom_blocks(self.idx, block_size=self.block):
+            pos = pos - self.ref[:, None, :]
+            if self.n_blocks == 1:
+                keep.append((ids, pos))
+            yield ids, pos
+        if self.n_blocks == 1:
+            self._cache = keep
+
+
+# =========================================================================== main entry
+def count_hops(traj, species, *, method="displacement", reference=None, threshold_A=None,
+               threshold_fraction=DEFAULT_THRESHOLD_FRACTION, smoothing_frames=None,
+               settle_frames=None, memory_budget_MB=256.0):
+    """Count the hops of one mobile species.
+
+    Parameters
+    ----------
+    traj : Trajectory
+        Unwrapped trajectory (Å, evenly spaced frames).
+    species : str
+        Element symbol of the mobile ions.
+    method : {"displacement", "sites"}
+        Resting places followed per ion (no sites needed), or sites found from
+        the density of the species with hysteresis assignment.
+    reference : {"framework", "all", "none"} or None
+        Drift reference subtracted first (None: "framework" where other species
+        exist, else "none").
+    threshold_A : float, Å, optional
+        Distance a settled move must exceed to count as a hop. Default:
+        ``threshold_fraction`` × the typical shortest distance between distinct
+        resting places seen. Must be positive and below half the smallest cell height.
+    threshold_fraction : float
+        Fraction used for the default threshold, in (0, 1].
+    smoothing_frames : int, optional
+        Running-median width (odd; 1 = none). Default: automatic.
+    settle_frames : int, optional
+        Consecutive frames needed at a new place. Default: automatic (1 or 2).
+    memory_budget_MB : float
+        Memory one block of atoms may use.
+
+    Returns
+    -------
+    HopSummary
+
+    Raises
+    ------
+    InputError
+        Species absent (the message lists those present); fewer than 2 frames.
+    UsageError
+        Unknown method; a threshold that is not positive or not below half the
+        cell; smoothing or settle values that are not whole numbers ≥ 1.
+
+    Examples
+    --------
+    >>> from diffkit.synth import hopping_run
+    >>> run = hopping_run(n_ions=20, n_frames=2000, vibration_rms_A=0.1, seed=1)
+    >>> hops = count_hops(run.trajectory, "Li")
+    >>> abs(hops.total_hops - run.truth.n_hops) < 0.1 * run.truth.n_hops
+    True
+    """
+    if method not in HOP_METHODS:
+        raise UsageError(f"count_hops: method must be one of {', '.join(HOP_METHODS)}; "
+                         f"got {method!r}")
+    if not isinstance(species, str):
+        raise UsageError(f"count_hops: species must be one element symbol, got {species!r}")
+    idx = traj.indices(species)
+    n = traj.n_frames
+    if n < 2:
+        raise InputError(f"count_hops needs at least 2 frames; the trajectory has {n}")
+    threshold_A = _check_positive("threshold_A", threshold_A)
+    frac_ = _check_positive("threshold_fraction", threshold_fraction, allow_none=False)
+    if frac_ > 1:
+        raise UsageError(f"threshold_fraction must be in (0, 1], got {threshold_fraction!r}")
+    w_user = _check_positive("smoothing_frames", smoothing_frames, integer=True)
+    if w_user is not None and w_user % 2 == 0:
+        raise UsageError(f"smoothing_frames must be odd (a centred window), got {w_user}")
+    s_user = _check_positive("settle_frames", settle_frames, integer=True)
+    if s_user is not None and s_user >= n:
+        raise UsageError(f"settle_frames ({s_user}) must be smaller than the number of "
+                         f"frames ({n})")
+    if isinstance(memory_budget_MB, bool) or not (
+            isinstance(memory_budget_MB, (int, float)) and memory_budget_MB > 0):
+        raise UsageError(f"memory_budget_MB must be a positive number, got {memory_budget_MB!r}")
+    cells = np.asarray(traj.cells, float)
+    h_min = float(cell_heights(cells).min())
+    if threshold_A is not None and threshold_A >= 0.5 * h_min:
+        raise UsageError(f"threshold_A = {threshold_A:g} Å is not below half the smallest cell "
+                         f"height ({0.5 * h_min:.4g} Å); a move that long cannot be told from "
+                         "a periodic image")
+    reference, ref_track = traj.reference_track(reference, species)
+    dt = float(traj.frame_interval_ps)
+    n_ions = len(idx)
+    stream = _Stream(traj, idx, ref_track, memory_budget_MB)
+
+    # ---- scouting: vibration, resting places, their distances
+    b = max(_SCOUT_BLOCK_MIN, int(round(_SCOUT_BLOCK_PS / dt)))
+    b = max(1, min(b, n // 8))
+    lag = max(1, int(round(0.5 * _SCOUT_BLOCK_PS / dt)))
+    scout = _Scout()
+    for _, pos in stream():
+        _scout_block(pos, b, lag, scout)
+    counts = sum(c for _, c in scout.lag_sigma)
+    sig_lag = (sum(s * c for s, c in scout.lag_sigma) / counts) if counts else 0.0
+    thr0 = max(_SCOUT_Z * sig_lag, 1e-3)
+    ladder = _NoiseLadder(scout.sample, sig_lag)
+    sigma_vib = ladder(1)
+    jumps = np.concatenate(scout.jumps) if scout.jumps else np.zeros(0)
+    d_min = float("nan")
+    basis = ""
+    if len(jumps) >= 10:
+        d_min = _typical_shortest(jumps)
+        basis = (f"{frac_:g} × {d_min:.3g} Å, the typical shortest distance between distinct "
+                 f"resting places ({len(jumps)} jumps seen while scouting)")
+    else:
+        starts = np.concatenate(scout.starts, axis=0)
+        pair = _nearest_distinct(starts, cells[0], thr0)
+        cand = np.concatenate([jumps, pair])
+        if len(cand):
+            d_min = _typical_shortest(cand)
+            basis = (f"{frac_:g} × {d_min:.3g} Å, the typical shortest distance between "
+                     f"distinct resting places ({len(jumps)} jumps and the nearest distances "
+                     f"between {len(starts)} ions' resting places)")
+    if threshold_A is not None:
+        thr = threshold_A
+        basis = "set by the user"
+    elif math.isfinite(d_min):
+        thr = frac_ * d_min
+    else:
+        thr = max(6.0 * sigma_vib, 0.5)
+        basis = (f"no distinct resting places seen: 6 × the vibration rms ({sigma_vib:.3g} Å), "
+                 "at least 0.5 Å")
+    thr = min(thr, 0.49 * h_min)
+
+    # ---- sites: peaks of the density
+    locator = None
+    d_nn = core = float("nan")
+    reach = thr
+    if method == "sites":
+        sep = d_min if (threshold_A is None and math.isfinite(d_min)) else thr / frac_
+        locator, d_nn, core = _build_sites(stream, cells, sigma_vib, thr, sep)
+        reach = d_nn - core
+
+    # ---- time resolution: the finest that vibration will not fool
+    w, settle = _choose_resolution(ladder, reach, n * n_ions, n, w_user, s_user)
+    gap = n / (1.0 + scout.hops / max(n_ions, 1))      # frames between scouted hops
+    lookahead = int(np.clip(gap, 8, 256))
+
+    # ---- the census
+    if method == "displacement":
+        out = _census_displacement(stream, thr, w, settle, lookahead)
+    else:
+        out = _census_sites(stream, locator, core, w, settle, cells)
+    hop_f, hop_i, hop_vec, disp, site_info = out
+    order = np.lexsort((hop_i, hop_f))
+    hop_f, hop_i, hop_vec = hop_f[order], hop_i[order], hop_vec[order]
+    jumps_A = np.sqrt(np.einsum("ij,ij->i", hop_vec, hop_vec)) if len(hop_vec) else np.zeros(0)
+    total_hops = int(len(hop_f))
+    per_ion = np.bincount(np.searchsorted(idx, hop_i), minlength=n_ions).astype(int)
+    a = float(np.mean(jumps_A)) if total_hops else float("nan")
+    tsd = float(np.sum(disp * disp))
+    n_eff = tsd / (a * a) if total_hops and a > 0 else 0.0
+    duration = float(traj.duration_ps)
+    sites = None
+    if method == "sites":
+        hf, ht, occupancy = site_info
+        hf, ht = hf[order], ht[order]
+        if total_hops:
+            key = hf.astype(np.int64) * locator.n + ht
+            uk, cnt = np.unique(key, return_counts=True)
+            pf, pt = uk // locator.n, uk % locator.n
+        else:
+            pf = pt = cnt = np.zeros(0, int)
+        sites = SiteCensus(
+            site_positions_A=locator.cart, core_radius_A=float(core),
+            nearest_site_distance_A=float(d_nn), site_occupancy=occupancy,
+            pair_from_site=pf.astype(int), pair_to_site=pt.astype(int),
+            pair_hops=cnt.astype(int), hop_from_site=hf, hop_to_site=ht)
+    res_frames = max(settle, (w + 1) // 2)
+    msg = _message(species, total_hops, per_ion, n_ions, duration, thr, res_frames * dt)
+    return HopSummary(
+        species=species, method=method, reference=reference, n_ions=n_ions,
+        ion_indices=np.asarray(idx, int), n_frames=n, frame_interval_ps=dt,
+        duration_ps=duration, total_hops=total_hops, hops_per_ion=per_ion,
+        fraction_ions_hopped=float(np.mean(per_ion > 0)),
+        hop_rate_per_ion_per_ps=(total_hops / (n_ions * duration) if duration > 0 else 0.0),
+        mean_jump_distance_A=a, total_squared_displacement_A2=tsd, n_effective_hops=n_eff,
+        hop_times_ps=np.asarray(traj.times_ps, float)[hop_f], hop_frames=hop_f,
+        hop_ions=hop_i, hop_jump_distances_A=jumps_A, threshold_A=float(thr),
+        threshold_basis=basis, resting_place_distance_A=float(d_min), smoothing_frames=int(w),
+        settle_frames=int(settle),
+        time_resolution_ps=float(res_frames * dt), vibration_rms_A=float(sigma_vib),
+        max_frame_step_A=float(scout.max_step), sites=sites, message=msg)
+
+
+def _choose_resolution(ladder, reach, n_obs, n, w_user, s_user):
+    """Finest (running-median width, settle frames) that vibration will not fool.
+
+    Tried in order of resolution: (1, 1), (3, 2), (5, 2), (7, 2), ...; the
+    first whose expected false hops over the run is ≤ ``_FALSE_HOP_BUDGET`` wins.
+    """
+    if w_user is not None and s_user is not None:
+        return w_user, s_user
+    if w_user is not None:
+        ok1 = w_user == 1 and _expected_false_hops(n_obs, reach, ladder(1), 1) \
+            <= _FALSE_HOP_BUDGET
+        return w_user, (1 if ok1 else min(2, n - 1))
+    cap = max(1, n // 4)
+    tries = [(1, s_user or 1)] + [(w, s_user or 2) for w in _WINDOWS[1:] if w <= cap]
+    for w, s in tries:
+        if _expected_false_hops(n_obs, reach, ladder(w), s) <= _FALSE_HOP_BUDGET:
+            return w, min(s, max(1, n - 1))
+    w, s = tries[-1]
+    return w, min(s, max(1, n - 1))
+
+
+def _census_displacement(stream, thr, w, settle, lookahead):
+    hop_f, hop_i, hop_vec, disp = [], [], [], []
+    for ids, pos in stream():
+        m = running_median(pos, w)
+        frames, ions = _follow_resting_places(m, thr, settle, lookahead)
+        centres, first, _, _ = _stay_centres(m, frames, ions, thr)
+        counts = np.bincount(ions, minlength=len(ids))
+        if len(frames):
+            rows = _hop_rows(first, ions)
+            hop_vec.append(centres[rows + 1] - centres[rows])
+        hop_f.append(frames)
+        hop_i.append(ids[ions])
+        disp.append(centres[first + counts] - centres[first])
+    return (np.concatenate(hop_f).astype(int), np.concatenate(hop_i).astype(int),
+            np.concatenate(hop_vec) if hop_vec else np.zeros((0, 3)),
+            np.concatenate(disp), None)
+
+
+def _census_sites(stream, locator, core, w, settle, cells):
+    n = stream.n_frames
+    const_cell = bool(np.allclose(cells, cells[:1]))
+    inv_cells = None if const_cell else np.linalg.inv(cells)
+    occupancy = np.zeros(locator.n)
+    hop_f, hop_i, hop_vec, hop_from, hop_to, disp = [], [], [], [], [], []
+    for ids, pos in stream():
+        m = running_median(pos, w)
+        lab = locator.core_site(m, inv_cells)
+        dec = lab >= 0
+        net = np.zeros((len(ids), 3))
+        for j in range(len(ids)):
+            fr, fa, ta, first_site = _site_changes(lab[:, j], dec[:, j], settle)
+            if first_site < 0:
+                continue
+            v = locator.min_image(locator.cart[ta] - locator.cart[fa])
+            hop_f.append(fr)
+            hop_i.append(np.full(len(fr), ids[j]))
+            hop_vec.append(v)
+            hop_from.append(fa)
+            hop_to.append(ta)
+            net[j] = v.sum(axis=0)
+            bounds = np.concatenate([[0], fr, [n]])
+            np.add.at(occupancy, np.concatenate([[first_site], ta]), np.diff(bounds) / n)
+        disp.append(net)
+    cat = (lambda parts, dt: np.concatenate(parts).astype(dt) if parts else np.zeros(0, dt))
+    return (cat(hop_f, int), cat(hop_i, int),
+            np.concatenate(hop_vec) if hop_vec else np.zeros((0, 3)), np.concatenate(disp),
+            (cat(hop_from, int), cat(hop_to, int), occupancy))
+
+
+def _message(species, total, per_ion, n_ions, duration, thr, res_ps):
+    if total == 0:
+        return (f"No {species} hop longer than {thr:.3g} Å was seen in {duration:g} ps "
+                f"({n_ions} ions).")
+    movers = int(np.sum(per_ion > 0))
+    text = (f"{total} {species} hops by {movers} of {n_ions} ions in {duration:g} ps "
+            f"(threshold {thr:.3g} Å; stays shorter than {res_ps:.3g} ps are merged).")
+    if movers <= 2 and n_ions > 2:
+        text += f" Only {movers} ion(s) moved: the diffusion seen is carried by very few ions."
+    return text
