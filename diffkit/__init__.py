@@ -19,6 +19,9 @@ from .diffusion import (ChargeTransportEstimate, DiffusionEstimate, choose_fit_w
 from .hops import HOP_METHODS, HopSummary, SiteCensus, count_hops
 from .trust import (VERDICTS, CheckResult, RunAssessment, TrustThresholds, assess_run,
                     expected_relative_error, kinetic_temperature_K, poisson_upper_limit)
+from .planning import (HE_2018_PRECISION, SYNTHETIC_PRECISION, CampaignPlan,
+                       ExtrapolationPrecision, PlannedRun, PrecisionModel,
+                       default_precision_model, extrapolation_precision, plan_campaign)
 from .synth import (CampaignTruth, GroundTruth, SyntheticRun, arrhenius_campaign, hopping_run,
                     vacancy_kmc_run, write_run)
 from .conductivity import (CAUTIONS, CandidateSummary, Conductivity, ConductivityTiers,
@@ -47,6 +50,9 @@ __all__ = [
     "HOP_METHODS", "HopSummary", "SiteCensus", "count_hops",
     "VERDICTS", "CheckResult", "RunAssessment", "TrustThresholds", "assess_run",
     "expected_relative_error", "kinetic_temperature_K", "poisson_upper_limit",
+    "HE_2018_PRECISION", "SYNTHETIC_PRECISION", "CampaignPlan", "ExtrapolationPrecision",
+    "PlannedRun", "PrecisionModel", "default_precision_model", "extrapolation_precision",
+    "plan_campaign",
     "CampaignTruth", "GroundTruth", "SyntheticRun", "arrhenius_campaign", "hopping_run",
     "vacancy_kmc_run", "write_run",
 ]

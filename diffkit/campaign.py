@@ -118,6 +118,7 @@ def _analysis_settings(cand, run):
         "window_ps": list(s["window"]) if s.get("window") else None,
         "method": s.get("method", "gls"),
         "temperature_K": run.temperature_K,
+        "layout": 2,  # version of the stored results; bump when analyse_run's output changes
     }
 
 
@@ -255,7 +256,24 @@ def analyse_run(traj, analysis):
     facts = run_overview(traj)
     facts["n_mobile_ions"] = int(sum(traj.count(s) for s in mobile))
     facts["mobile"] = list(mobile)
-    return {"run": facts, "assessment": assessment.to_dict()}
+    return {"run": facts, "assessment": assessment.to_dict(),
+            "msd_points": msd_points(assessment.msd_curve), "provenance": traj.provenance}
+
+
+def msd_points(curve, n_points=160):
+    """The MSD curve at about ``n_points`` log-spaced lags (for figures; units in keys)."""
+    import numpy as np
+
+    lags = np.asarray(curve.lag_ps)
+    if len(lags) <= n_points:
+        sel = np.arange(len(lags))
+    else:
+        sel = np.unique(np.concatenate([
+            [0], np.round(np.geomspace(1, len(lags) - 1, n_points)).astype(int)]))
+    return {"species": list(curve.species), "reference": curve.reference,
+            "lag_ps": lags[sel], "msd_A2": np.asarray(curve.msd_A2)[sel],
+            "msd_axes_A2": np.asarray(curve.msd_axes_A2)[sel],
+            "collective_A2": np.asarray(curve.collective_A2)[sel]}
 
 
 # --------------------------------------------------------------------------- runners
@@ -344,7 +362,7 @@ def _candidate_summary(cand, outcomes):
         Ds_se.append(est.get("D_sigma_stderr_cm2_per_s"))
     if n_ions is None:
         return None, flags + ["no run of this candidate could be analysed"]
-    tiers = ConductivityTiers(*s["tier_bounds_S_per_cm"]) if s.get("tier_bounds_S_per_cm") \
+    tiers = ConductivityTiers(tuple(s["tier_bounds_S_per_cm"])) if s.get("tier_bounds_S_per_cm") \
         else ConductivityTiers()
     by_T = dict(zip(vol_T, vols))
     vol_list = [by_T[T] for T in Ts] if Ts else [min(vols)]

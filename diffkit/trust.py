@@ -256,6 +256,8 @@ class RunAssessment:
     thresholds : TrustThresholds
     message : str
         One-line summary.
+    msd_curve : MSDCurve
+        The MSD the estimate was fitted to (left out of ``to_dict()``: it is large).
     """
 
     species: str
@@ -276,6 +278,7 @@ class RunAssessment:
     kinetic_temperature_K: float | None
     thresholds: TrustThresholds = field(default_factory=TrustThresholds)
     message: str = ""
+    msd_curve: object = field(default=None, compare=False)
 
     def check(self, name):
         """The check called ``name``."""
@@ -285,8 +288,10 @@ class RunAssessment:
         raise KeyError(f"no check named {name!r}; checks: {[c.name for c in self.checks]}")
 
     def to_dict(self):
-        """Plain JSON-ready dict."""
-        return to_plain(self)
+        """Plain JSON-ready dict (without the full MSD curve; use ``msd_curve.to_dict()``)."""
+        out = to_plain(dataclasses.replace(self, msd_curve=None))
+        out.pop("msd_curve", None)
+        return out
 
     def __repr__(self):
         first = self.advice[0] if self.advice else ""
@@ -670,7 +675,7 @@ def assess_run(traj, species, *, reference=None, window=None, method="gls",
         poisson_upper_hops=float(n_up), D_hop_bound_cm2_per_s=D_bound_cm2,
         suggested_extension_ps=None if extension is None else float(extension),
         suggested_start_ps=start_ps, kinetic_temperature_K=T_kin, thresholds=th,
-        message=msg + ".")
+        message=msg + ".", msd_curve=curve)
 
 
 def _thresholds(thresholds):

@@ -107,7 +107,7 @@ def run(args):
         volumes_A3=vols if vols else min(t.mean_volume_A3 for t in trajs),
         charge=args.charge, species=args.mobile, haven_ratio=args.haven_ratio,
         upper_bounds=bounds or None, target_K=args.target,
-        tiers=ConductivityTiers(*args.tiers) if args.tiers else ConductivityTiers(),
+        tiers=ConductivityTiers(tuple(args.tiers)) if args.tiers else ConductivityTiers(),
         volume_method=args.volume, route=args.route, **extra)
     if args.plot:
         from ..report.plots import arrhenius_figure, save_figure
