@@ -140,9 +140,10 @@ def assessment_text(a, title=None):
                  f"{_pct_or_dash(a.expected_relative_error)}")
     lines.append("checks:")
     for c in a.checks:
-        fig = "" if c.figure != c.figure else f"{c.figure:.3g} {c.unit}".rstrip()
-        lines.append(f"  {_MARK.get(c.status, c.status):4s}  {c.title:<34s} {fig:<16s} "
-                     f"{c.explanation}")
+        fig = "" if c.figure != c.figure else f": {c.figure:.3g} {c.unit}".rstrip()
+        lines.append(f"  {_MARK.get(c.status, c.status):4s}  {c.title}{fig}")
+        if c.status in ("warn", "fail"):  # say why only where it matters
+            lines.append(f"          {c.explanation}")
     for extra in a.advice[1:]:
         lines.append(f"also:    {extra}")
     return "\n".join(lines)
