@@ -313,3 +313,18 @@ def test_nonsense_options_name_the_option(small):
     with pytest.raises(UsageError, match="threshold_A"):
         assess_run(small, "Li", hop_threshold_A=1e3)
     assert VERDICTS == ("solid", "tentative", "inadequate")
+
+
+def test_halves_comparison_allows_for_few_ions():
+    # Welch's t with Welch–Satterthwaite degrees of freedom (Welch, Biometrika 34, 28 (1947));
+    # the reference p-value comes from scipy.stats (common practice).
+    from scipy import stats
+
+    from diffkit.trust import _normal_equivalent
+
+    t, s1, s2, n1, n2 = 3.0, 1.0, 1.2, 15, 15
+    z = _normal_equivalent(t, s1, n1, s2, n2)
+    nu = (s1**2 + s2**2) ** 2 / (s1**4 / n1 + s2**4 / n2)
+    assert stats.norm.sf(z) == pytest.approx(stats.t.sf(t, nu), rel=1e-9)
+    assert z < t  # heavier tails: the same difference is less surprising
+    assert _normal_equivalent(t, s1, 1e9, s2, 1e9) == pytest.approx(t, rel=1e-6)
