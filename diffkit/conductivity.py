@@ -32,6 +32,7 @@ from scipy import stats as _stats
 
 from .arrhenius import (_SUSPICIOUS_D_CM2_PER_S, ArrheniusFit, _as_1d, _check_bounds,
                         _check_inputs, fit_arrhenius)
+from ._checks import positive_number
 from .errors import DiffkitWarning, FitError, InputError, UsageError
 from .units import (A2_PER_PS_IN_CM2_PER_S, A3_IN_CM3, E_CHARGE_C, K_B_J_PER_K, MS_PER_S,
                     a2ps_to_cm2s)
@@ -82,15 +83,6 @@ CAUTIONS = (
 # --------------------------------------------------------------------------- helpers
 
 
-def _positive(name, value, *, allow_zero=False):
-    try:
-        v = float(value)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name}: expected a number, got {value!r}") from exc
-    if not math.isfinite(v) or v < 0 or (v == 0 and not allow_zero):
-        need = "≥ 0" if allow_zero else "> 0"
-        raise InputError(f"{name}: expected a finite value {need}, got {value!r}")
-    return v
 
 
 def _charge(value):
@@ -104,7 +96,7 @@ def _charge(value):
 
 
 def _n_ions(value):
-    v = _positive("n_ions", value)
+    v = positive_number("n_ions", value)
     return int(v) if v == int(v) else v
 
 
@@ -419,12 +411,12 @@ class CandidateSummary:
 
 def _from_D(D, D_se, *, n_ions, volume_A3, temperature_K, charge, haven_ratio, route, formula):
     n = _n_ions(n_ions)
-    V = _positive("volume_A3", volume_A3)
-    T = _positive("temperature_K", temperature_K)
+    V = positive_number("volume_A3", volume_A3)
+    T = positive_number("temperature_K", temperature_K)
     z = _charge(charge)
     factor = _ne_factor(n, V, T, z)
     if haven_ratio is not None:
-        factor /= _positive("haven_ratio", haven_ratio)
+        factor /= positive_number("haven_ratio", haven_ratio)
     sigma = factor * D
     se = None if D_se is None else factor * D_se
     return Conductivity(
@@ -451,9 +443,9 @@ def _diffusivity(D_cm2_per_s, D_A2_per_ps, D_stderr_cm2_per_s, D_stderr_A2_per_p
     if D_stderr_cm2_per_s is not None and D_stderr_A2_per_ps is not None:
         raise UsageError(f"give at most one of {name}_stderr_cm2_per_s and {name}_stderr_A2_per_ps")
     if D_cm2_per_s is None:
-        D = a2ps_to_cm2s(_positive(f"{name}_A2_per_ps", D_A2_per_ps, allow_zero=True))
+        D = a2ps_to_cm2s(positive_number(f"{name}_A2_per_ps", D_A2_per_ps, allow_zero=True))
     else:
-        D = _positive(f"{name}_cm2_per_s", D_cm2_per_s, allow_zero=True)
+        D = positive_number(f"{name}_cm2_per_s", D_cm2_per_s, allow_zero=True)
         if D > _SUSPICIOUS_D_CM2_PER_S:
             warnings.warn(
                 f"{name}_cm2_per_s = {D:.3g} is far above diffusivities in solids; it looks like "
@@ -461,9 +453,9 @@ def _diffusivity(D_cm2_per_s, D_A2_per_ps, D_stderr_cm2_per_s, D_stderr_A2_per_p
                 f"{name}_A2_per_ps if so.", DiffkitWarning, stacklevel=3)
     se = None
     if D_stderr_cm2_per_s is not None:
-        se = _positive(f"{name}_stderr_cm2_per_s", D_stderr_cm2_per_s, allow_zero=True)
+        se = positive_number(f"{name}_stderr_cm2_per_s", D_stderr_cm2_per_s, allow_zero=True)
     elif D_stderr_A2_per_ps is not None:
-        se = a2ps_to_cm2s(_positive(f"{name}_stderr_A2_per_ps", D_stderr_A2_per_ps, allow_zero=True))
+        se = a2ps_to_cm2s(positive_number(f"{name}_stderr_A2_per_ps", D_stderr_A2_per_ps, allow_zero=True))
     return D, se
 
 
@@ -558,9 +550,9 @@ def sigma_from_charge_msd_slope(slope_e2_A2_per_ps, *, volume_A3, temperature_K,
     Conductivity
         ``route="charge-weighted MSD"``; no Haven ratio, charge or ion count.
     """
-    s = _positive("slope_e2_A2_per_ps", slope_e2_A2_per_ps, allow_zero=True)
-    V = _positive("volume_A3", volume_A3)
-    T = _positive("temperature_K", temperature_K)
+    s = positive_number("slope_e2_A2_per_ps", slope_e2_A2_per_ps, allow_zero=True)
+    V = positive_number("volume_A3", volume_A3)
+    T = positive_number("temperature_K", temperature_K)
     if dimensions not in (1, 2, 3):
         raise InputError(f"dimensions: expected 1, 2 or 3, got {dimensions!r}")
     factor = (E_CHARGE_C ** 2 * A2_PER_PS_IN_CM2_PER_S
@@ -568,7 +560,7 @@ def sigma_from_charge_msd_slope(slope_e2_A2_per_ps, *, volume_A3, temperature_K,
     sigma = factor * s
     se = None
     if slope_stderr_e2_A2_per_ps is not None:
-        se = factor * _positive("slope_stderr_e2_A2_per_ps", slope_stderr_e2_A2_per_ps,
+        se = factor * positive_number("slope_stderr_e2_A2_per_ps", slope_stderr_e2_A2_per_ps,
                                 allow_zero=True)
     return Conductivity(
         sigma_S_per_cm=sigma, sigma_stderr_S_per_cm=se, sigma_mS_per_cm=sigma * _MS_PER_S,
@@ -601,7 +593,7 @@ def volume_at(T_K, temperatures_K, volumes_A3, method="lowest"):
     -------
     VolumeChoice
     """
-    T0 = _positive("T_K", T_K)
+    T0 = positive_number("T_K", T_K)
     T = _as_1d("temperatures_K", temperatures_K)
     V = _as_1d("volumes_A3", volumes_A3)
     if len(T) != len(V) or len(T) == 0:
@@ -689,22 +681,22 @@ def extrapolate_conductivity(fit, *, temperature_K=300.0, n_ions=None, volume_A3
     """
     if not isinstance(fit, ArrheniusFit):
         raise UsageError(f"fit: expected an ArrheniusFit, got {type(fit).__name__}")
-    T = _positive("temperature_K", temperature_K)
+    T = positive_number("temperature_K", temperature_K)
     point = fit.extrapolate(T)
     if fit.quantity == "D":
         if n_ions is None or volume_A3 is None:
             raise UsageError("σ from a fit of ln D needs n_ions and volume_A3 at the target "
                              "temperature (see diffkit.volume_at)")
-        n, V, z = _n_ions(n_ions), _positive("volume_A3", volume_A3), _charge(charge)
-        H = _positive("haven_ratio", haven_ratio)
+        n, V, z = _n_ions(n_ions), positive_number("volume_A3", volume_A3), _charge(charge)
+        H = positive_number("haven_ratio", haven_ratio)
         factor = _ne_factor(n, V, T, z) / H
         route = "tracer D via Arrhenius fit of ln D, Nernst-Einstein at the target"
     elif fit.quantity == "sigma_T":
         factor = 1.0 / T
         n = None if n_ions is None else _n_ions(n_ions)
-        V = None if volume_A3 is None else _positive("volume_A3", volume_A3)
+        V = None if volume_A3 is None else positive_number("volume_A3", volume_A3)
         z = None if charge is None else _charge(charge)
-        H = None if haven_ratio is None else _positive("haven_ratio", haven_ratio)
+        H = None if haven_ratio is None else positive_number("haven_ratio", haven_ratio)
         route = "Arrhenius fit of ln(sigma*T), each temperature with its own volume"
         if not volume_note:
             volume_note = ("each simulated temperature's own mean volume entered sigma*T; no "
@@ -790,12 +782,12 @@ def summarize_candidate(name, temperatures_K, D_cm2_per_s, D_stderr_cm2_per_s, *
                              "charge of alkali, alkaline-earth and Zn ions)")
         charge = default_charge(species)
     z = _charge(charge)
-    H = _positive("haven_ratio", haven_ratio)
-    T0 = _positive("target_K", target_K)
+    H = positive_number("haven_ratio", haven_ratio)
+    T0 = positive_number("target_K", target_K)
     n = _n_ions(n_ions)
     T, D, se = _check_inputs(temperatures_K, D_cm2_per_s, D_stderr_cm2_per_s, "D")
     if np.ndim(volumes_A3) == 0:
-        vols = np.full(len(T), _positive("volumes_A3", volumes_A3))
+        vols = np.full(len(T), positive_number("volumes_A3", volumes_A3))
     else:
         vols = _as_1d("volumes_A3", volumes_A3)
         if len(vols) != len(T):

@@ -43,6 +43,7 @@ from scipy import optimize as _opt
 from scipy import stats as _stats
 
 from .arrhenius import _SUSPICIOUS_D_CM2_PER_S
+from ._checks import positive_number
 from .errors import DiffkitWarning, InputError, UsageError
 from .results import to_plain
 from .units import A2_PER_PS_IN_CM2_PER_S, K_B_EV_PER_K, MS_PER_S, cm2s_to_a2ps
@@ -249,7 +250,7 @@ def extrapolation_precision(temperatures_K, relative_errors, *, target_temperatu
         raise InputError(f"relative_errors must be finite and > 0, got {relative_errors!r}")
     if len(np.unique(T)) < 2:
         raise InputError("a line needs two or more distinct temperatures")
-    T0 = _positive("target_temperature_K", target_temperature_K)
+    T0 = positive_number("target_temperature_K", target_temperature_K)
     x, w = _x_of(T), 1.0 / e ** 2
     var, var_ea, _ = _line_variances(x, w, float(_x_of(T0)))
     return ExtrapolationPrecision(T0, math.sqrt(var), math.sqrt(var_ea),
@@ -549,15 +550,6 @@ class CampaignPlan:
 # --------------------------------------------------------------------------- input checks
 
 
-def _positive(name, value, *, allow_zero=False):
-    try:
-        v = float(value)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name}: expected a number, got {value!r}") from exc
-    if not math.isfinite(v) or v < 0 or (v == 0 and not allow_zero):
-        need = "≥ 0" if allow_zero else "> 0"
-        raise InputError(f"{name}: expected a finite value {need}, got {value!r}")
-    return v
 
 
 def _temperatures(values):
@@ -829,31 +821,31 @@ def plan_campaign(*, Ea_eV, candidate_temperatures_K, n_ions, jump_distance_A,
     """
     if target_quantity not in ("sigma", "D"):
         raise UsageError(f"target_quantity must be 'sigma' or 'D', got {target_quantity!r}")
-    Ea = _positive("Ea_eV", Ea_eV, allow_zero=True)
+    Ea = positive_number("Ea_eV", Ea_eV, allow_zero=True)
     if Ea > _SUSPICIOUS_EA_EV:
         warnings.warn(f"Ea_eV = {Ea:g} is far above activation energies of ion conductors; "
                       "is it in kJ/mol or kcal/mol? (1 eV = 96.485 kJ/mol)", DiffkitWarning,
                       stacklevel=2)
     T_in = candidate_temperatures_K
     T = _temperatures(T_in)
-    n = _positive("n_ions", n_ions)
+    n = positive_number("n_ions", n_ions)
     if n != int(n):
         raise InputError(f"n_ions: expected a whole number of ions, got {n_ions!r}")
     n = int(n)
-    a = _positive("jump_distance_A", jump_distance_A)
-    eps = _positive("target_relative_error", target_relative_error)
-    T0 = _positive("target_temperature_K", target_temperature_K)
+    a = positive_number("jump_distance_A", jump_distance_A)
+    eps = positive_number("target_relative_error", target_relative_error)
+    T0 = positive_number("target_temperature_K", target_temperature_K)
     if dimension not in (1, 2, 3):
         raise InputError(f"dimension: expected 1, 2 or 3, got {dimension!r}")
     costs = _costs(cost_per_ps, T_in, T)
-    t_max = math.inf if max_length_ps is None else _positive("max_length_ps", max_length_ps)
-    t_min = _positive("min_length_ps", min_length_ps, allow_zero=True)
+    t_max = math.inf if max_length_ps is None else positive_number("max_length_ps", max_length_ps)
+    t_min = positive_number("min_length_ps", min_length_ps, allow_zero=True)
     if t_min > t_max:
         raise UsageError(f"min_length_ps ({t_min:g}) exceeds max_length_ps ({t_max:g})")
     good_hops, hops_per_frame = _trust_defaults()
-    n_min = _positive("min_effective_hops", good_hops if min_effective_hops is None
+    n_min = positive_number("min_effective_hops", good_hops if min_effective_hops is None
                       else min_effective_hops, allow_zero=True)
-    hpi_min = _positive("min_hops_per_ion", min_hops_per_ion, allow_zero=True)
+    hpi_min = positive_number("min_hops_per_ion", min_hops_per_ion, allow_zero=True)
     if isinstance(min_temperatures, bool) or int(min_temperatures) != min_temperatures \
             or min_temperatures < 2:
         raise UsageError(f"min_temperatures must be a whole number ≥ 2, got {min_temperatures!r}")
@@ -869,21 +861,21 @@ def plan_campaign(*, Ea_eV, candidate_temperatures_K, n_ions, jump_distance_A,
     model = default_precision_model() if precision is None else precision
     if not isinstance(model, PrecisionModel):
         raise UsageError(f"precision: expected a PrecisionModel, got {type(model).__name__}")
-    dEa = _positive("Ea_sensitivity_eV", Ea_sensitivity_eV, allow_zero=True)
+    dEa = positive_number("Ea_sensitivity_eV", Ea_sensitivity_eV, allow_zero=True)
 
     # the expected Arrhenius law
     if D0_cm2_per_s is not None:
         if D_cm2_per_s is not None or at_temperature_K is not None:
             raise UsageError("give either D0_cm2_per_s or D_cm2_per_s with at_temperature_K, "
                              "not both")
-        D0 = _positive("D0_cm2_per_s", D0_cm2_per_s)
+        D0 = positive_number("D0_cm2_per_s", D0_cm2_per_s)
         T_ref, D_ref = None, None
     else:
         if D_cm2_per_s is None or at_temperature_K is None:
             raise UsageError("give the expected D_cm2_per_s with at_temperature_K (or the "
                              "prefactor D0_cm2_per_s)")
-        D_ref = _positive("D_cm2_per_s", D_cm2_per_s)
-        T_ref = _positive("at_temperature_K", at_temperature_K)
+        D_ref = positive_number("D_cm2_per_s", D_cm2_per_s)
+        T_ref = positive_number("at_temperature_K", at_temperature_K)
         if D_ref > _SUSPICIOUS_D_CM2_PER_S:
             warnings.warn(
                 f"D_cm2_per_s = {D_ref:.3g} is far above diffusivities in solids; it looks like "
