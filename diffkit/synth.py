@@ -692,7 +692,6 @@ def hopping_run(*, n_ions=100, n_frames=10_000, frame_interval_ps=0.1, temperatu
                              f"{a:g} Å and leave room for the vibration")
         net = _Network(np.diag([a, a, c]), net.frac, net.src, net.dst, net.shift, net.vec)
     box = net.cell * reps[:, None]
-    n_sites = n_unit * int(np.prod(reps))
     grid = np.array(list(itertools.product(*(range(int(r)) for r in reps))), dtype=np.int64)
     site_pos = ((net.frac[None, :, :] + grid[:, None, :]) @ net.cell).reshape(-1, 3)
     # site index = p + n_unit * flat(cell) — the order of site_pos above

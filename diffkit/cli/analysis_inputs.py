@@ -17,7 +17,6 @@ def is_run_file(path):
 def load_run(paths, args):
     """A Trajectory from one run file, or from trajectory files of one run (read in memory)."""
     from ..errors import UsageError
-    from ..io.assemble import RunAssembler  # noqa: F401  (import check)
     from ..io.store import open_run
     from .options import read_options
 

@@ -12,7 +12,7 @@ EXAMPLE = """examples:
   diffkit campaign screening.toml --out results/ --scheduler tcp://10.0.0.5:8786   # Dask cluster
   diffkit campaign screening.toml --out results/ --status
 
-The manifest lists candidates and their runs (format: docs/formats.md). A run is recomputed only
+The manifest lists candidates and their runs (format: docs/campaigns.md). A run is recomputed only
 when its input files' contents or its options changed; a campaign that was stopped resumes where
 it was. One bad run is reported as failed with its reason and the others go on; the exit code is
 then 1 (also when any run was judged inadequate)."""

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from .options import add_read_options, print_json, time_ps, window_ps
+from .options import add_read_options, print_json, window_ps
 
 EXAMPLE = """examples:
   diffkit inspect candA_900K.h5 --mobile Li

@@ -28,10 +28,8 @@ def write_campaign_report(path, manifest, result):
     from .tables import campaign_rows
 
     order = [r["candidate"] for r in campaign_rows(result)]
-    by_name = {c.name: c for c in manifest.candidates}
     sections = []
     for name in order:
-        cand = by_name[name]
         runs = []
         for o in (o for o in result.outcomes if o.candidate == name):
             if o.status == "failed" or not o.results:
