@@ -174,6 +174,28 @@ class TrustThresholds:
 
 
 # =========================================================================== results
+@dataclass(frozen=True)
+class RunningEstimate:
+    """D estimated from the leading part of a run, against that part's length.
+
+    Attributes
+    ----------
+    times_ps : tuple of float, ps
+        Length of the leading part used.
+    D_cm2_per_s, lower_cm2_per_s, upper_cm2_per_s : tuple of float, cm²/s
+        Estimate and its 95% interval (NaN where that part gives no fitted D).
+    """
+
+    times_ps: tuple
+    D_cm2_per_s: tuple
+    lower_cm2_per_s: tuple
+    upper_cm2_per_s: tuple
+
+    def to_dict(self):
+        """Plain JSON-ready dict."""
+        return to_plain(self)
+
+
 @dataclass(frozen=True, repr=False)
 class CheckResult:
     """One check of a run.
@@ -258,6 +280,9 @@ class RunAssessment:
         One-line summary.
     msd_curve : MSDCurve
         The MSD the estimate was fitted to (left out of ``to_dict()``: it is large).
+    running : RunningEstimate or None
+        D from the first quarter, half, three quarters and all of the run (None
+        without a fitted D or with ``check_halves=False``).
     """
 
     species: str
@@ -279,6 +304,7 @@ class RunAssessment:
     thresholds: TrustThresholds = field(default_factory=TrustThresholds)
     message: str = ""
     msd_curve: object = field(default=None, compare=False)
+    running: object = None
 
     def check(self, name):
         """The check called ``name``."""
@@ -431,7 +457,7 @@ def _fmt_D(est):
 # =========================================================================== main entry
 def assess_run(traj, species, *, reference=None, window=None, method="gls",
                hop_method="displacement", hop_threshold_A=None, jump_distance_A=None,
-               thresholds=None, check_halves=True, memory_budget_MB=256.0):
+               thresholds=None, check_halves=True, memory_budget_MB=256.0, progress=None):
     """Verdict, checks and advice on whether one run's D can be trusted.
 
     Parameters
@@ -459,6 +485,8 @@ def assess_run(traj, species, *, reference=None, window=None, method="gls",
     check_halves : bool
         Run the convergence check (two more MSD fits on the halves).
     memory_budget_MB : float
+    progress : callable, optional
+        Called as ``progress(stages_done, n_stages)`` as the analysis advances.
 
     Returns
     -------
@@ -493,10 +521,19 @@ def assess_run(traj, species, *, reference=None, window=None, method="gls",
                          f"move of {math.sqrt(th.host_growth_fail_A2):.3g} Å, larger than the cell "
                          f"({h_min:.3g} Å between faces)")
 
+    stages = [0]
+
+    def tick():
+        stages[0] += 1
+        if progress is not None:
+            progress(stages[0], 5)
+
     hops = count_hops(traj, species, method=hop_method, reference=reference,
                       threshold_A=hop_threshold_A, memory_budget_MB=memory_budget_MB)
+    tick()
     curve = compute_msd(traj, species, reference=reference, memory_budget_MB=memory_budget_MB)
     est = estimate_diffusion(curve, window=window, method=method)
+    tick()
     n_ions = len(idx)
     t_run = float(traj.duration_ps)
     dt = float(traj.frame_interval_ps)
@@ -582,9 +619,14 @@ def assess_run(traj, species, *, reference=None, window=None, method="gls",
                            "ballistic and cage regime."))
 
     # ---- 3. converged
-    conv = _check_converged(traj, species, reference, method, est, th, too_few, check_halves,
-                            memory_budget_MB)
+    conv, first_half = _check_converged(traj, species, reference, method, est, th, too_few,
+                                        check_halves, memory_budget_MB)
     checks.append(conv)
+    running = None
+    if check_halves and not too_few and math.isfinite(est.D_A2_per_ps) and not est.is_upper_bound:
+        running = _running_estimate(traj, species, reference, method, est, first_half,
+                                    memory_budget_MB)
+    tick()
     if conv.status in ("warn", "fail"):
         advice.append((45, "D from the first and second halves of the run disagree beyond their "
                            "errors: the run is not converged — it may still be equilibrating or "
@@ -627,6 +669,7 @@ def assess_run(traj, species, *, reference=None, window=None, method="gls",
     # ---- 6. host stable
     host = _check_host(traj, host_species, th, memory_budget_MB)
     checks.append(host)
+    tick()
     if host.status == "fail":
         advice.append((0, "THE HOST STRUCTURE IS NOT STABLE IN THIS RUN: " + host.explanation
                           + " It has melted or become amorphous at this temperature, so this D "
@@ -639,6 +682,7 @@ def assess_run(traj, species, *, reference=None, window=None, method="gls",
 
     # ---- 7. & 8. equilibration and temperature
     eq, start_ps, T_kin, tcheck = _check_equilibrium(traj, th)
+    tick()
     checks.append(eq)
     if eq.status in ("warn", "fail"):
         if start_ps is not None:
@@ -675,7 +719,7 @@ def assess_run(traj, species, *, reference=None, window=None, method="gls",
         poisson_upper_hops=float(n_up), D_hop_bound_cm2_per_s=D_bound_cm2,
         suggested_extension_ps=None if extension is None else float(extension),
         suggested_start_ps=start_ps, kinetic_temperature_K=T_kin, thresholds=th,
-        message=msg + ".", msd_curve=curve)
+        message=msg + ".", msd_curve=curve, running=running)
 
 
 def _thresholds(thresholds):
@@ -763,10 +807,10 @@ def _check_converged(traj, species, reference, method, est, th, too_few, enabled
     thr = f"warn above {th.convergence_warn_z:g}, fail above {th.convergence_fail_z:g} σ"
     if not enabled:
         return CheckResult("converged", title, "skipped", math.nan, "σ", thr,
-                           "not run (check_halves=False).")
+                           "not run (check_halves=False)."), None
     if too_few or not math.isfinite(est.D_A2_per_ps) or est.is_upper_bound:
         return CheckResult("converged", title, "skipped", math.nan, "σ", thr,
-                           "not judged: the whole run gives no fitted D.")
+                           "not judged: the whole run gives no fitted D."), None
     half = 0.5 * traj.duration_ps
     parts = []
     for lo, hi in ((0.0, half), (half, traj.duration_ps)):
@@ -780,7 +824,7 @@ def _check_converged(traj, species, reference, method, est, th, too_few, enabled
     if any(p is None for p in parts):
         return CheckResult("converged", title, "warn", math.nan, "σ", thr,
                            "a half of the run is too short or has too few hops to give D "
-                           "on its own.")
+                           "on its own."), parts[0]
     d1, d2 = parts
     se = math.hypot(d1.D_stderr_cm2_per_s, d2.D_stderr_cm2_per_s)
     t = abs(d1.D_cm2_per_s - d2.D_cm2_per_s) / se if se > 0 else math.inf
@@ -790,7 +834,29 @@ def _check_converged(traj, species, reference, method, est, th, too_few, enabled
                        f"D is {d1.D_cm2_per_s:.3g} ± {d1.D_stderr_cm2_per_s:.2g} cm²/s in the "
                        f"first half and {d2.D_cm2_per_s:.3g} ± {d2.D_stderr_cm2_per_s:.2g} cm²/s "
                        f"in the second, {t:.2g} standard errors apart ({z:.2g} σ as a normal "
-                       f"deviate, allowing for the few ions behind each error bar).")
+                       f"deviate, allowing for the few ions behind each error bar)."), d1
+
+
+def _running_estimate(traj, species, reference, method, est, first_half, budget):
+    """D from the first quarter, half, three quarters and all of the run (convergence figure)."""
+    times, D, lo, hi = [], [], [], []
+    for frac in (0.25, 0.5, 0.75, 1.0):
+        if frac == 1.0:
+            e = est
+        elif frac == 0.5:
+            e = first_half
+        else:
+            sub = traj.window(0.0, frac * traj.duration_ps)
+            e = None
+            if sub.n_frames >= 8:
+                e = estimate_diffusion(compute_msd(sub, species, reference=reference,
+                                                   memory_budget_MB=budget), method=method)
+        ok = e is not None and math.isfinite(e.D_A2_per_ps) and not e.is_upper_bound
+        times.append(frac * traj.duration_ps)
+        D.append(e.D_cm2_per_s if ok else math.nan)
+        lo.append(e.D_interval95_cm2_per_s[0] if ok else math.nan)
+        hi.append(e.D_interval95_cm2_per_s[1] if ok else math.nan)
+    return RunningEstimate(tuple(times), tuple(D), tuple(lo), tuple(hi))
 
 
 def _host_msd_at(traj, host_species, lags, budget):

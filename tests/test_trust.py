@@ -328,3 +328,24 @@ def test_halves_comparison_allows_for_few_ions():
     assert stats.norm.sf(z) == pytest.approx(stats.t.sf(t, nu), rel=1e-9)
     assert z < t  # heavier tails: the same difference is less surprising
     assert _normal_equivalent(t, s1, 1e9, s2, 1e9) == pytest.approx(t, rel=1e-6)
+
+
+def test_running_estimate_and_progress():
+    # the running estimate ends at the whole-run estimate; every part brackets the exact D
+    # of the hopping model (Einstein relation; Mehrer, Diffusion in Solids, ch. 4) within
+    # a generous margin
+    from diffkit.synth import hopping_run
+    from diffkit.trust import assess_run
+
+    run = hopping_run(n_ions=24, n_frames=2000, frame_interval_ps=0.02, temperature_K=900,
+                      Ea_eV=0.3, jump_distance_A=2.2, framework={"B": 4, "S": 8}, seed=4)
+    seen = []
+    a = assess_run(run.trajectory, "Li", progress=lambda done, total: seen.append((done, total)))
+    assert seen[-1] == (5, 5) and len(seen) == 5
+    r = a.running
+    assert len(r.times_ps) == 4 and r.times_ps[-1] == pytest.approx(run.trajectory.duration_ps)
+    assert r.D_cm2_per_s[-1] == a.diffusion.D_cm2_per_s
+    truth = run.truth.D_cm2_per_s
+    for lo, hi in zip(r.lower_cm2_per_s, r.upper_cm2_per_s):
+        width = hi - lo
+        assert lo - width < truth < hi + width

@@ -100,8 +100,11 @@ def run(args):
     from ..trust import VERDICTS, assess_run
     from .analysis_inputs import load_run
 
+    from ..progress import ProgressBar
+
     traj = load_run(args.inputs, args)
-    assessment = assess_run(traj, args.mobile, **assess_kwargs(args))
+    with ProgressBar("analysing", unit="stages") as bar:
+        assessment = assess_run(traj, args.mobile, progress=bar, **assess_kwargs(args))
     if args.json:
         print_json({"inputs": list(args.inputs), "run": run_overview(traj),
                     "assessment": assessment})
