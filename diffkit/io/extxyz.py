@@ -23,6 +23,13 @@ then one line per atom. Keys read from the comment line (case-insensitive):
 
 The LAMMPS-only ``units`` argument is ignored. ``type_map`` maps a species
 column of integer types (``1``, ``2``, ...) to element symbols.
+
+Speed: the atom lines of many frames are converted at once (fixed-width
+columns as ASE and diffkit write them, else whitespace-separated fields; see
+:mod:`diffkit.io._parsing`), and a comment line that repeats the previous
+one's keys is read through a pattern built from it. Whatever that bulk path
+does not recognise is read line by line, which names the file, frame and line
+of any problem.
 """
 
 from __future__ import annotations
@@ -35,8 +42,9 @@ import numpy as np
 from ..errors import InputError, UnitsError
 from ..units import parse_time_ps
 from . import FrameChunk
-from ._parsing import (BadLine, CutOff, LineSource, chunk_frames, element_symbol,
-                       normalize_type_map, opened, parse_columns, warn)
+from ._parsing import (_LOW, BadLine, CutOff, FixedWidthLayout, chunk_frames, decode_fields,
+                       element_symbol, lines_of, normalize_type_map, opened, parse_columns,
+                       text_codes, warn)
 
 __all__ = ["sniff", "iter_chunks"]
 
@@ -124,9 +132,70 @@ class _Layout:
         self.text = props_text
 
 
+_VARYING = ("lattice", "time_ps", "time_fs", "time", "step", "timestep")
+_NON_SPACE = re.compile(r"\S+")
+
+
+class _CommentTemplate:
+    """A comment line with the values that change from frame to frame cut out.
+
+    A later comment that repeats everything else character for character holds
+    the same keys in the same order, so only those values need reading (one
+    regular expression built from the first line finds them).
+    """
+
+    def __init__(self, comment, info):
+        self.info = info
+        self.keys = []
+        pattern = []
+        pos = 0
+        for m in _PAIR.finditer(comment):
+            if m.group(1) is None or m.group(1).lower() not in _VARYING:
+                continue
+            a, b = m.span(2)
+            pattern.append(re.escape(comment[pos:a]))
+            quoted = comment[a] == '"'
+            pattern.append(r'"([^"\\]*)"' if quoted else r'([^\s"{]\S*)')
+            self.keys.append(m.group(1).lower())
+            pos = b
+        pattern.append(re.escape(comment[pos:]))
+        self.pattern = re.compile("".join(pattern), re.DOTALL)
+        self.head = None  # the same, with the count line before it, over bytes (set by the reader)
+        self.lattice_text = info.get("lattice")
+        self.cell = None
+        if self.lattice_text is not None:
+            try:
+                v = [float(x) for x in str(self.lattice_text).replace(",", " ").split()]
+                if len(v) == 9 and all(map(math.isfinite, v)):
+                    self.cell = v
+            except ValueError:
+                pass
+        if self.cell is None:
+            self.lattice_text = None
+        self.lattice_bytes = None if self.lattice_text is None else \
+            str(self.lattice_text).encode("utf-8")
+
+    def match(self, comment):
+        """The changing values of ``comment`` ({key: text}), or None if it differs otherwise."""
+        m = self.pattern.fullmatch(comment)
+        if m is None:
+            return None
+        return dict(zip(self.keys, m.groups()))
+
+    def compile_head(self, count_line):
+        """A bytes pattern for the count line and this comment line together."""
+        text = self.pattern.pattern
+        try:
+            self.head = re.compile(re.escape(count_line) + text.encode("utf-8"), re.DOTALL)
+        except (UnicodeEncodeError, re.error):  # pragma: no cover - odd comment text
+            self.head = None
+
+
 class _XyzReader:
-    def __init__(self, stream, name, frames_per_chunk, type_map):
-        self.src = LineSource(stream, name)
+    def __init__(self, src, name, frames_per_chunk, type_map):
+        self.src = src
+        self._ref = None
+        self._template = None
         self.name = name
         self.frames_per_chunk = frames_per_chunk
         self.type_map = normalize_type_map(type_map, name)
@@ -188,6 +257,15 @@ class _XyzReader:
             self._velocity_unit(info, err)
         elif props != self.layout.text:
             raise err(f"Properties changed from {self.layout.text!r} to {props!r}")
+        cell, time, step = self._facts(info, err)
+        lines = src.take(n)
+        if len(lines) < n:
+            raise CutOff(start, len(lines), n, src.cut)
+        self._last_start, self._last_lines = start, lines
+        return start, cell, time, step, lines
+
+    def _facts(self, info, err):
+        """Cell, time and step of one comment line (checks the kind of positions too)."""
         cell = self._lattice(info, err)
         time = self._time(info, err)
         step = None
@@ -203,11 +281,7 @@ class _XyzReader:
             self.kind = kind
         elif kind != self.kind:
             raise err(f"frame says unwrapped={kind == 'unwrapped'} unlike the first frame")
-        lines = src.take(n)
-        if len(lines) < n:
-            raise CutOff(start, len(lines), n, src.cut)
-        self._last_start, self._last_lines = start, lines
-        return start, cell, time, step, lines
+        return cell, time, step
 
     def _velocity_unit(self, info, err):
         lay = self.layout
@@ -258,63 +332,326 @@ class _XyzReader:
         return None
 
     def chunks(self):
-        pending, n_done, first_in_chunk, k = [], 0, 0, None
+        pieces, count, n_done, first_in_chunk, k = [], 0, 0, 0, None
+        bulk = True
         while True:
+            if bulk and self.layout is not None:
+                status, m = self._bulk(k - count, pieces, n_done)
+                n_done += m
+                count += m
+                if count == k:
+                    yield self._build(pieces, first_in_chunk)
+                    first_in_chunk += count
+                    pieces, count = [], 0
+                if status == "end":
+                    break
+                if status == "more":
+                    continue
+                bulk = False  # line by line until this chunk is full
             frame = n_done + 1
             try:
                 fr = self._read_frame(frame)
             except CutOff as cut:
                 if n_done == 0:
                     raise InputError(f"{self.name}: frame 1 (line {cut.lineno}) is cut off "
-                                 f"({cut.how()}); no complete frame") from None
+                                     f"({cut.how()}); no complete frame") from None
                 warn(f"{self.name}: frame {frame} (line {cut.lineno}) is cut off ({cut.how()}); "
                      f"dropped it and kept the {n_done} complete frames before it")
                 break
             if fr is None:
                 break
-            pending.append(fr)
+            pieces.append(("lines",) + fr)
+            if n_done == 0:
+                self._first_lines = fr[4]
             n_done += 1
+            count += 1
             if k is None:
                 k = chunk_frames(self.frames_per_chunk, self.n)
-            if len(pending) == k:
-                yield self._build(pending, first_in_chunk)
-                first_in_chunk += len(pending)
-                pending = []
-        if pending:
-            yield self._build(pending, first_in_chunk)
+            if count == k:
+                yield self._build(pieces, first_in_chunk)
+                first_in_chunk += count
+                pieces, count = [], 0
+                bulk = True
+        if pieces:
+            yield self._build(pieces, first_in_chunk)
         elif n_done == 0:
             raise InputError(f"{self.name}: line 1: file is empty, expected extended XYZ frames")
 
-    def _build(self, frames, first_frame):
-        lay, n, k = self.layout, self.n, len(frames)
-        all_lines = [line for fr in frames for line in fr[4]]
+    # -- the bulk path: many frames at once -----------------------------------------------
+    def _bulk(self, want, pieces, n_done):
+        """Read up to ``want`` frames in bulk.
+
+        Returns ``(status, m)``: ``m`` frames appended to ``pieces`` as one
+        decoded piece; status "more" (go on in bulk), "end" (the file ended
+        cleanly after them) or "stuck" (the next frame needs the careful path;
+        nothing of it was read).
+        """
+        src, n = self.src, self.n
+        if self._ref is None and not self._learn_reference():
+            return "stuck", 0
+        est = getattr(self, "_frame_bytes", 80 * (n + 2))
+        src.fill(int(est * want * 1.05) + 4096)
+        count_line = self._count_bytes
+        marker = b"\n" + count_line
+        fixed = getattr(self, "_fixed", None)
+        width = fixed.width if fixed is not None and fixed.ok else 0
+        while True:
+            buf, p0 = src.buf, src.pos
+            lineno = src.lineno
+            starts, cells, times, steps, bodies = [], [], [], [], []
+            p = p0
+            status = "more"  # also when the buffer ends before the next whole frame
+            while len(bodies) < want:
+                if p >= len(buf) and src.eof:
+                    status = "end"
+                    break
+                tpl = self._template
+                if width and tpl is not None and tpl.head is not None:
+                    # fixed-width lines and a comment like the last one: one match per frame
+                    head = tpl.head.match(buf, p)
+                    e = head.end() + n * width if head is not None else -1
+                    if 0 < e <= len(buf) and buf[e - 1] == 10 and (
+                            buf.startswith(count_line, e) or (e == len(buf) and src.eof)):
+                        facts = self._head_facts(tpl, head.groups(), n_done + len(bodies) + 1,
+                                                 lineno + 2)
+                        if facts is not None:
+                            starts.append(lineno + 1)
+                            cells.append(facts[0])
+                            times.append(facts[1])
+                            steps.append(facts[2])
+                            bodies.append((head.end(), e))
+                            lineno += n + 2
+                            p = e
+                            continue
+                c0 = p + len(count_line)
+                c1 = buf.find(b"\n", c0 - 1)
+                if c1 < 0:
+                    status = "more" if not src.eof else "stuck"
+                    break
+                if c1 != c0 - 1 or not buf.startswith(count_line, p):
+                    status = "stuck"
+                    break
+                c1 = buf.find(b"\n", c0)
+                e = c1 + 1 + n * width if c1 >= 0 and width else -1
+                if 0 < e <= len(buf) and buf[e - 1] == 10 and (
+                        buf.startswith(count_line, e) or (e == len(buf) and src.eof)):
+                    pass  # fixed-width lines: the decoder checks every line's length and newline
+                else:
+                    q = buf.find(marker, c1) if c1 >= 0 else -1
+                    if q >= 0:
+                        e = q + 1
+                    elif c1 >= 0 and src.eof:
+                        e = len(buf)
+                    else:
+                        status = "more" if not src.eof else "stuck"
+                        break
+                    if buf.count(b"\n", c1 + 1, e) != n or buf[e - 1:e] != b"\n":
+                        status = "stuck"
+                        break
+                facts = self._bulk_comment(buf[c0:c1 + 1], n_done + len(bodies) + 1, lineno + 2)
+                if facts is None:
+                    status = "stuck"
+                    break
+                starts.append(lineno + 1)
+                cells.append(facts[0])
+                times.append(facts[1])
+                steps.append(facts[2])
+                bodies.append((c1 + 1, e))
+                lineno += n + 2
+                p = e
+            if bodies or status != "more" or src.eof:
+                break
+            src.fill(2 * (len(buf) - p0) + 4096)  # not one whole frame in view: read more
+        if not bodies:
+            return ("end", 0) if status == "end" else ("stuck", 0)
+        m = len(bodies)
+        data = self._decode_bodies(buf, bodies)
+        if data is None:
+            return "stuck", 0
+        self._frame_bytes = max(64, (p - p0) / m)
+        pieces.append(("values", starts, cells, times, steps, data.reshape(m, n, -1)))
+        last = buf[bodies[-1][0]:bodies[-1][1]]
+        self._last_start, self._last_lines = starts[-1], lines_of(last)
+        src.consume(p - p0, lineno - src.lineno)
+        return status, m
+
+    def _bulk_comment(self, raw, frame, lineno):
+        """(cell, time, step) of a comment line, or None when only the careful path may judge it."""
+        comment = raw.decode("utf-8", "replace")
+
+        def err(what):
+            return self._error(frame, lineno, what)
+
+        tpl = self._template
+        values = tpl.match(comment) if tpl is not None else None
+        if values is None:  # read the whole line
+            info = parse_comment(comment)
+            if info.get("properties", "species:S:1:pos:R:3") != self.layout.text:
+                return None
+            self._template = _CommentTemplate(comment, info)
+            self._template.compile_head(self._count_bytes)
+            try:
+                return self._facts(info, err)
+            except InputError:
+                return None
         try:
-            data = parse_columns(all_lines, lay.usecols, lay.n_fields)
-        except BadLine as bad:
-            j, i = divmod(bad.index, n)
-            text = all_lines[bad.index].strip()
-            if text.isdigit():
-                raise self._error(first_frame + j + 1, frames[j][0],
-                                  f"{i} atom lines, but its count line says {n}") from None
-            raise self._error(first_frame + j + 1, frames[j][0] + 2 + i, bad.reason) from None
-        data = data.reshape(k, n, -1)
+            lattice = values.get("lattice")
+            if lattice is not None and lattice != tpl.lattice_text:
+                tpl.cell = self._lattice({"lattice": lattice}, err)
+                tpl.lattice_text, tpl.lattice_bytes = lattice, lattice.encode("utf-8")
+            if "time_ps" in values:
+                time = float(values["time_ps"])
+                if not math.isfinite(time):
+                    return None
+            else:
+                time = self._time({**tpl.info, **values}, err)
+            step = None
+            for key in ("step", "timestep"):
+                if key in values:
+                    step = int(values[key])
+                    break
+        except (InputError, ValueError):
+            return None
+        return tpl.cell, time, step
+
+    def _head_facts(self, tpl, groups, frame, lineno):
+        """(cell, time, step) from the changing values (bytes) a template match found, or None."""
+        values = dict(zip(tpl.keys, groups))
+        try:
+            lattice = values.get("lattice")
+            if lattice is not None and lattice != tpl.lattice_bytes:
+                text = lattice.decode("utf-8")
+                tpl.cell = self._lattice({"lattice": text}, lambda what: InputError(what))
+                tpl.lattice_text, tpl.lattice_bytes = text, lattice
+            if "time_ps" in values:
+                time = float(values["time_ps"])
+                if not math.isfinite(time):
+                    return None
+            else:
+                strs = {k: v.decode("utf-8") for k, v in values.items()}
+                time = self._time({**tpl.info, **strs}, lambda what: InputError(what))
+            step = None
+            for key in ("step", "timestep"):
+                if key in values:
+                    step = int(values[key])
+                    break
+        except (InputError, ValueError, UnicodeDecodeError):
+            return None
+        return tpl.cell, time, step
+
+    def _learn_reference(self):
+        """Species words of the first frame (read line by line), for checking later frames."""
+        lines = self._first_lines
+        col = self.layout.species_col
+        words = []
+        for line in lines:
+            f = line.split()
+            if len(f) != self.layout.n_fields:
+                return False
+            words.append(f[col])
+        try:
+            self._ref_codes = text_codes(words)
+        except ValueError:
+            return False
+        raw = [line.encode("utf-8") for line in lines]
+        self._count_bytes = (str(self.n) + "\n").encode()
+        self._prefix = None
+        if col == 0:
+            width = max(len(r.split(None, 1)[0]) for r in raw)
+            if width <= 8 and all(len(r) > max(width, 8) and r[width:width + 1] == b" "
+                                  for r in raw):
+                self._prefix = (width, text_codes([r[:width] for r in raw]))
+                self._fixed = FixedWidthLayout(raw[0], start=width)
+        self._ref = True
+        return True
+
+    def _decode_bodies(self, buf, bodies):
+        """(m * n, ncols) numbers of the frames' atom lines (species checked), or None."""
+        lay, n, m = self.layout, self.n, len(bodies)
+        view = memoryview(buf)
+        data = b"".join(view[a:b] for a, b in bodies)
+        R = m * n
+        fixed = getattr(self, "_fixed", None)
+        if fixed is not None and fixed.ok and len(data) == R * fixed.width:
+            rows = np.frombuffer(data, np.uint8).reshape(R, fixed.width)
+            width, ref = self._prefix
+            # the first 8 bytes of every line (lines are longer than 8 bytes), species kept
+            words = np.ndarray((R,), "<u8", data, offset=0, strides=(fixed.width,)) & _LOW[width]
+            if (words.reshape(m, n) == ref).all():
+                values = fixed.decode(rows)
+                if values is not None:
+                    cols = [c - 1 for c in lay.usecols]
+                    return values if cols == list(range(values.shape[1])) else values[:, cols]
+            # frames were cut by length: make sure each holds n lines before reading by fields
+            if any(buf.count(b"\n", a, b) != n for a, b in bodies):
+                return None
+        got = decode_fields(data, R, lay.n_fields, lay.usecols, textcols=[lay.species_col],
+                            dotted=sorted(lay.usecols))
+        if got is None:
+            return None
+        values, (codes,) = got
+        if not (codes.reshape(m, n) == self._ref_codes).all():
+            return None
+        return values
+
+    # -- turning frames into arrays -------------------------------------------------------
+    def _build(self, pieces, first_frame):
+        lay, n = self.layout, self.n
+        frames, datas = [], []  # (start, cell, time, step) per frame; data per piece
+        careful = []            # runs of frames read line by line: (index of first, frames)
+        for piece in pieces:
+            if piece[0] == "values":
+                _, starts, cells, times, steps, data = piece
+                frames.extend(zip(starts, cells, times, steps))
+                datas.append(data)
+            else:
+                if careful and careful[-1][0] + len(careful[-1][1]) == len(frames):
+                    careful[-1][1].append(piece[1:])
+                else:
+                    careful.append((len(frames), [piece[1:]]))
+                    datas.append(careful[-1])
+                frames.append(piece[1:5])
+        k = len(frames)
+        names = {}
+        parts = []
+        for d in datas:
+            if isinstance(d, np.ndarray):
+                parts.append(d)
+                continue
+            j0, run = d
+            all_lines = [line for fr in run for line in fr[4]]
+            try:
+                data = parse_columns(all_lines, lay.usecols, lay.n_fields)
+            except BadLine as bad:
+                j, i = divmod(bad.index, n)
+                text = all_lines[bad.index].strip()
+                j += j0
+                if text.isdigit():
+                    raise self._error(first_frame + j + 1, frames[j][0],
+                                      f"{i} atom lines, but its count line says {n}") from None
+                raise self._error(first_frame + j + 1, frames[j][0] + 2 + i, bad.reason) \
+                    from None
+            parts.append(data.reshape(len(run), n, -1))
+            names[j0] = (all_lines, len(run))
+        data = np.concatenate(parts)
         cells = np.array([fr[1] for fr in frames], dtype=float).reshape(k, 3, 3)
         flat = np.flatnonzero(np.abs(np.linalg.det(cells)) < 1e-12)
         if flat.size:
             j = int(flat[0])
             raise self._error(first_frame + j + 1, frames[j][0] + 1, "Lattice= spans no volume")
-        names = np.loadtxt(all_lines, dtype=str, usecols=[lay.species_col], comments=None,
-                           ndmin=1).reshape(k, n)
-        if self.species is None:
-            self.species = self._symbols(names[0], frames[0][0], first_frame + 1)
-            self._raw_names = names[0].copy()
-        bad = np.flatnonzero(np.any(names != self._raw_names, axis=1))
-        if bad.size:
-            j = int(bad[0])
-            a = int(np.flatnonzero(names[j] != self._raw_names)[0])
-            raise self._error(first_frame + j + 1, frames[j][0] + 2 + a,
-                              f"atom {a + 1} is {names[j, a]!r}, was {self._raw_names[a]!r} in "
-                              "the first frame")
+        for j0, (all_lines, kk) in names.items():
+            words = np.loadtxt(all_lines, dtype=str, usecols=[lay.species_col], comments=None,
+                               ndmin=1).reshape(kk, n)
+            if self.species is None:
+                self.species = self._symbols(words[0], frames[0][0], first_frame + 1)
+                self._raw_names = words[0].copy()
+            bad = np.flatnonzero(np.any(words != self._raw_names, axis=1))
+            if bad.size:
+                j = int(bad[0]) + j0
+                a = int(np.flatnonzero(words[j - j0] != self._raw_names)[0])
+                raise self._error(first_frame + j + 1, frames[j][0] + 2 + a,
+                                  f"atom {a + 1} is {str(words[j - j0, a])!r}, was "
+                                  f"{str(self._raw_names[a])!r} in the first frame")
         positions = np.ascontiguousarray(data[:, :, 0:3])
         velocities = None
         if lay.vel_col is not None:
@@ -379,5 +716,5 @@ def iter_chunks(path, *, frames_per_chunk=1000, type_map=None, units=None):
         Lattice=, text or NaN in numeric columns, unknown element. A cut-off last
         frame is dropped with a warning.
     """
-    with opened(path) as (stream, name):
-        yield from _XyzReader(stream, name, frames_per_chunk, type_map).chunks()
+    with opened(path) as (src, name):
+        yield from _XyzReader(src, name, frames_per_chunk, type_map).chunks()

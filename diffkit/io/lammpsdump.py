@@ -22,6 +22,12 @@ converted to Å/ps and ``ITEM: TIME`` to ps. Other styles are refused. The style
 comes from ``units=``, else from an ``ITEM: UNITS`` section, else ``metal`` is
 assumed with a warning. ``steps`` holds TIMESTEP; the time per step is the
 user's ``md_timestep_ps``.
+
+Speed: the atom lines of many frames are converted at once (see
+:mod:`diffkit.io._parsing`); ids, types and element names that repeat
+frame after frame (``dump_modify sort id``) are read once per chunk. Whatever
+that bulk path does not recognise is read line by line, which names the file,
+frame and line of any problem.
 """
 
 from __future__ import annotations
@@ -33,8 +39,9 @@ import numpy as np
 from ..errors import InputError
 from ..units import parse_time_ps
 from . import FrameChunk
-from ._parsing import (BadLine, CutOff, LineSource, chunk_frames, element_symbol,
-                       normalize_type_map, opened, parse_columns, warn)
+from ._parsing import (BadLine, CutOff, chunk_frames, decode_fields, element_symbol,
+                       field_codes, in_parallel, lines_of, normalize_type_map, opened,
+                       parse_columns, split_for_threads, warn)
 
 __all__ = ["sniff", "iter_chunks", "UNIT_STYLES"]
 
@@ -137,8 +144,9 @@ class _Frame:
 
 
 class _DumpReader:
-    def __init__(self, stream, name, frames_per_chunk, type_map, units):
-        self.src = LineSource(stream, name)
+    def __init__(self, src, name, frames_per_chunk, type_map, units):
+        self.src = src
+        self.template = None
         self.name = name
         self.frames_per_chunk = frames_per_chunk
         self.type_map = normalize_type_map(type_map, name)
@@ -312,53 +320,293 @@ class _DumpReader:
 
     # -- chunks -----------------------------------------------------------------------
     def chunks(self):
-        pending = []
-        first_in_chunk = 0
-        n_done = 0
-        k = None
+        pieces, count, n_done, first_in_chunk, k = [], 0, 0, 0, None
+        bulk = True
         while True:
+            if bulk and self.template is not None:
+                status, m = self._bulk(k - count, pieces, n_done)
+                n_done += m
+                count += m
+                if count == k:
+                    yield self._build(pieces, first_in_chunk)
+                    first_in_chunk += count
+                    pieces, count = [], 0
+                if status == "end":
+                    break
+                if status == "more":
+                    continue
+                bulk = False  # line by line until this chunk is full
             frame = n_done + 1
+            if n_done == 0:
+                self.src.record = []
             try:
                 fr = self._read_frame(frame)
             except CutOff as cut:
                 if n_done == 0:
                     raise InputError(f"{self.name}: frame 1 (line {cut.lineno}) is cut off "
-                                 f"({cut.how()}); no complete frame") from None
+                                     f"({cut.how()}); no complete frame") from None
                 warn(f"{self.name}: frame {frame} (line {cut.lineno}) is cut off ({cut.how()}); "
                      f"dropped it and kept the {n_done} complete frames before it")
                 break
+            finally:
+                if n_done == 0:
+                    self._learn_template(self.src.record)
+                    self.src.record = None
             if fr is None:
                 break
-            pending.append(fr)
+            pieces.append(fr)
             n_done += 1
+            count += 1
             if k is None:
                 k = chunk_frames(self.frames_per_chunk, self.n_atoms)
-            if len(pending) == k:
-                yield self._build(pending, first_in_chunk)
-                first_in_chunk += len(pending)
-                pending = []
-        if pending:
-            yield self._build(pending, first_in_chunk)
+            if count == k:
+                yield self._build(pieces, first_in_chunk)
+                first_in_chunk += count
+                pieces, count = [], 0
+                bulk = True
+        if pieces:
+            yield self._build(pieces, first_in_chunk)
         elif n_done == 0:
             raise InputError(f"{self.name}: line 1: file is empty, expected a LAMMPS dump frame")
 
-    def _build(self, frames, first_frame):
-        lay, n, k = self.layout, self.n_atoms, len(frames)
-        all_lines = [line for fr in frames for line in fr.lines]
-        try:
-            data = parse_columns(all_lines, lay.usecols, lay.min_fields)
-        except BadLine as bad:
-            j, i = divmod(bad.index, n)
-            if all_lines[bad.index].startswith("ITEM:"):
-                raise self._error(first_frame + j + 1, frames[j].atoms_lineno,
-                                  f"{i} atom lines, but ITEM: NUMBER OF ATOMS says {n}") from None
-            raise self._error(first_frame + j + 1, frames[j].atoms_lineno + 1 + i,
-                              bad.reason) from None
-        data = data.reshape(k, n, -1)
-        elements = None
-        if lay.element_col is not None and (self.species is None or lay.type_col is None):
-            elements = np.loadtxt(all_lines, dtype=str, usecols=[lay.element_col],
-                                  comments=None, ndmin=1).reshape(k, n)
+    # -- the bulk path: many frames at once -----------------------------------------------
+    def _learn_template(self, record):
+        """The first frame's header lines, each with what it holds (for the bulk path)."""
+        self.template = None
+        if not record or self.layout is None:
+            return
+        lines = [r for r in record if r.strip()]
+        n_head = len(lines) - self.n_atoms
+        if n_head < 1 or not lines[n_head - 1].startswith(b"ITEM: ATOMS"):
+            return
+        roles, follow = [], []
+        for raw in lines[:n_head]:
+            if follow:
+                roles.append((follow.pop(0), raw))
+                continue
+            if not raw.startswith(b"ITEM:"):
+                return
+            item = raw[5:].strip().upper()
+            roles.append(("item", raw))
+            if item == b"TIMESTEP":
+                follow = ["step"]
+            elif item == b"TIME":
+                follow = ["time"]
+            elif item == b"UNITS" or item == b"NUMBER OF ATOMS":
+                follow = ["same"]
+            elif item.startswith(b"BOX BOUNDS"):
+                follow = ["box", "box", "box"]
+                self._triclinic = b"XY" in item.split()
+        if follow:
+            return
+        self.template = roles
+        self._box_at = 1 + next(i for i, (r, _) in enumerate(roles) if r == "box") - 1
+        self._marker = b"\n" + lines[0]
+        # when only the step line changes, the rest of the header repeats byte for byte
+        self._head_ref = None
+        kinds = [r for r, _ in roles]
+        if kinds.count("step") == 1 and "time" not in kinds:
+            i = kinds.index("step")
+            self._head_ref = (b"".join(x for _, x in roles[:i]),
+                              b"".join(x for _, x in roles[i + 1:]))
+        self._box_raw = self._bounds = None
+
+    def _bulk(self, want, pieces, n_done):
+        """Read up to ``want`` frames in bulk.
+
+        Returns ``(status, m)``: ``m`` frames appended to ``pieces`` as one
+        decoded piece; status "more" (go on in bulk), "end" (the file ended
+        cleanly after them) or "stuck" (the next frame needs the careful path;
+        nothing of it was read).
+        """
+        src, n = self.src, self.n_atoms
+        n_head = len(self.template)
+        est = getattr(self, "_frame_bytes", 64 * (n + n_head))
+        src.fill(int(est * want * 1.05) + 4096)
+        while True:
+            buf, p0 = src.buf, src.pos
+            lineno = src.lineno
+            frames, bodies = [], []
+            p = p0
+            status = "more"  # also when the buffer ends before the next whole frame
+            while len(bodies) < want:
+                if p >= len(buf) and src.eof:
+                    status = "end"
+                    break
+                fr = _Frame()
+                fr.lineno = lineno + 1
+                fr.time = None
+                q = self._bulk_header(buf, p, fr)
+                if q is None or q < 0:
+                    status = "stuck" if q is None or src.eof else "more"
+                    break
+                e = buf.find(self._marker, q - 1)
+                if e >= 0:
+                    e += 1
+                elif src.eof:
+                    e = len(buf)
+                else:
+                    break
+                if buf[e - 1:e] != b"\n":  # the decoder checks each frame's lines
+                    status = "stuck"
+                    break
+                fr.atoms_lineno = lineno + n_head
+                fr.box_lineno = lineno + self._box_at
+                fr.lines = None
+                frames.append(fr)
+                bodies.append((q, e))
+                lineno += n_head + n
+                p = e
+            if bodies or status != "more" or src.eof:
+                break
+            src.fill(2 * (len(buf) - p0) + 4096)  # not one whole frame in view: read more
+        if not bodies:
+            return ("end", 0) if status == "end" else ("stuck", 0)
+        m = len(bodies)
+        got = self._decode_bodies(buf, bodies)
+        if got is None:
+            return "stuck", 0
+        data, elements = got
+        self._frame_bytes = max(64, (p - p0) / m)
+        pieces.append(("values", frames, data.reshape(m, n, -1), elements))
+        last = buf[bodies[-1][0]:bodies[-1][1]]
+        self._last_atoms_lineno, self._last_lines = frames[-1].atoms_lineno, lines_of(last)
+        src.consume(p - p0, lineno - src.lineno)
+        return status, m
+
+    def _bulk_header(self, buf, p, fr):
+        """Read one frame's header at ``buf[p:]`` into ``fr`` without raising.
+
+        Returns the position after it, -1 when the buffer ends first, or None
+        when only the careful path may judge it.
+        """
+        ref = self._head_ref
+        if ref is not None and self._bounds is not None and buf.startswith(ref[0], p):
+            s0 = p + len(ref[0])
+            s1 = buf.find(b"\n", s0)
+            if s1 < 0:
+                return -1
+            if buf.startswith(ref[1], s1 + 1):
+                try:
+                    fr.step = int(buf[s0:s1])
+                except ValueError:
+                    return None
+                fr.bounds = self._bounds
+                return s1 + 1 + len(ref[1])
+        q = p
+        box = []
+        fr.step = None
+        for role, raw in self.template:
+            r = buf.find(b"\n", q)
+            if r < 0:
+                return -1
+            line = buf[q:r + 1]
+            q = r + 1
+            if role == "item" or role == "same":
+                if line != raw:
+                    return None
+            elif role == "step":
+                try:
+                    fr.step = int(line)
+                except ValueError:
+                    return None
+            elif role == "time":
+                try:
+                    fr.time = float(line)
+                except ValueError:
+                    return None
+                if not math.isfinite(fr.time) or len(line.split()) != 1:
+                    return None
+            else:
+                box.append(line)
+        if box != self._box_raw:
+            want = 3 if self._triclinic else 2
+            bounds = []
+            for line in box:
+                try:
+                    v = [float(x) for x in line.split()[:want]]
+                except ValueError:
+                    return None
+                if len(v) < want or not all(map(math.isfinite, v)):
+                    return None
+                bounds.extend(v if self._triclinic else v + [0.0])
+            self._box_raw, self._bounds = box, bounds
+            if self._head_ref is not None:  # the repeated header holds the box too
+                i = [r for r, _ in self.template].index("step")
+                lines = iter(box)
+                self._head_ref = (self._head_ref[0], b"".join(
+                    next(lines) if r == "box" else x for r, x in self.template[i + 1:]))
+        fr.bounds = self._bounds
+        return q
+
+    def _decode_bodies(self, buf, bodies):
+        """((m * n, ncols) numbers, element codes or None) of the frames' atom lines, or None."""
+        lay, n, m = self.layout, self.n_atoms, len(bodies)
+        view = memoryview(buf)
+        text = [lay.element_col] if lay.element_col is not None else []
+        dotted = sorted(lay.pos_cols + (lay.vel_cols or []))
+        lead = min(lay.pos_cols)  # ids, types, names before the positions: often repeated
+
+        def decode(a, b):
+            data = b"".join(view[x:y] for x, y in bodies[a:b])
+            ends = np.cumsum([y - x for x, y in bodies[a:b]])
+            return decode_fields(data, (b - a) * n, len(lay.columns), lay.usecols,
+                                 textcols=text, dotted=dotted, repeat=(n, lead),
+                                 frame_ends=ends)
+
+        parts = in_parallel(decode, split_for_threads(m, bodies[-1][1] - bodies[0][0]))
+        if any(got is None for got in parts):
+            return None
+        values = np.concatenate([got[0] for got in parts])
+        codes = np.concatenate([got[1][0] for got in parts]).reshape(m, n) if text else None
+        return values, codes
+
+    def _build(self, pieces, first_frame):
+        lay, n = self.layout, self.n_atoms
+        frames, parts, codes = [], [], []
+        careful = []  # runs of frames read line by line: (index of first, frames)
+        for piece in pieces:
+            if isinstance(piece, tuple):
+                _, frs, data, el = piece
+                frames.extend(frs)
+                parts.append(data)
+                codes.append(el)
+                continue
+            if careful and careful[-1][0] + len(careful[-1][1]) == len(frames):
+                careful[-1][1].append(piece)
+            else:
+                careful.append((len(frames), [piece]))
+                parts.append(careful[-1])
+                codes.append(careful[-1])
+            frames.append(piece)
+        want_elements = lay.element_col is not None and (self.species is None
+                                                         or lay.type_col is None)
+        datas, elements = [], []
+        for part, el in zip(parts, codes):
+            if isinstance(part, np.ndarray):
+                datas.append(part)
+                if want_elements:
+                    elements.append(field_codes(el))
+                continue
+            j0, run = part
+            all_lines = [line for fr in run for line in fr.lines]
+            try:
+                data = parse_columns(all_lines, lay.usecols, lay.min_fields)
+            except BadLine as bad:
+                j, i = divmod(bad.index, n)
+                j += j0
+                if all_lines[bad.index].startswith("ITEM:"):
+                    raise self._error(first_frame + j + 1, frames[j].atoms_lineno,
+                                      f"{i} atom lines, but ITEM: NUMBER OF ATOMS says {n}") \
+                        from None
+                raise self._error(first_frame + j + 1, frames[j].atoms_lineno + 1 + i,
+                                  bad.reason) from None
+            datas.append(data.reshape(len(run), n, -1))
+            if want_elements:
+                elements.append(np.loadtxt(all_lines, dtype=str, usecols=[lay.element_col],
+                                           comments=None, ndmin=1).reshape(len(run), n))
+        data = np.concatenate(datas)
+        elements = np.concatenate(elements) if want_elements else None
         if lay.s_id is not None:
             ids = data[:, :, lay.s_id.start]
             if np.any(ids != np.round(ids)):
@@ -366,11 +614,14 @@ class _DumpReader:
                 raise self._error(first_frame + j + 1, frames[j].atoms_lineno,
                                   "atom ids are not integers")
             ids = ids.astype(np.int64)
-            order = np.argsort(ids, axis=1, kind="stable")
-            data = np.take_along_axis(data, order[:, :, None], axis=1)
-            if elements is not None:
-                elements = np.take_along_axis(elements, order, axis=1)
-            sorted_ids = np.take_along_axis(ids, order, axis=1)
+            if (ids[:, 1:] > ids[:, :-1]).all():  # already in id order (dump_modify sort id)
+                sorted_ids = ids
+            else:
+                order = np.argsort(ids, axis=1, kind="stable")
+                data = np.take_along_axis(data, order[:, :, None], axis=1)
+                if elements is not None:
+                    elements = np.take_along_axis(elements, order, axis=1)
+                sorted_ids = np.take_along_axis(ids, order, axis=1)
             if self.ref_ids is None:
                 self.ref_ids = sorted_ids[0].copy()
                 dup = np.flatnonzero(np.diff(self.ref_ids) == 0)
@@ -390,7 +641,7 @@ class _DumpReader:
         pos = data[:, :, lay.s_pos]
         if lay.scaled:
             pos = origins[:, None, :] + np.matmul(pos, cells)
-        else:
+        elif self.length_factor != 1.0:
             pos = pos * self.length_factor
         images = None
         if lay.s_img is not None:
@@ -480,5 +731,5 @@ def iter_chunks(path, *, frames_per_chunk=1000, type_map=None, units=None):
         columns, text or NaN in numeric columns, unknown element or type, an
         unsupported unit style. A cut-off last frame is dropped with a warning.
     """
-    with opened(path) as (stream, name):
-        yield from _DumpReader(stream, name, frames_per_chunk, type_map, units).chunks()
+    with opened(path) as (src, name):
+        yield from _DumpReader(src, name, frames_per_chunk, type_map, units).chunks()

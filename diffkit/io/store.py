@@ -52,7 +52,7 @@ def _frames_per_chunk(n_atoms):
 class _RunWriter:
     """Write frames to a new run file as they come (bounded memory)."""
 
-    def __init__(self, h5, species, masses, has_velocities, compression, buffer_MB=64.0):
+    def __init__(self, h5, species, masses, has_velocities, compression, buffer_MB=16.0):
         self.h5 = h5
         n = len(species)
         self.n_atoms = n
@@ -81,7 +81,14 @@ class _RunWriter:
         m.attrs["unit"] = "amu"
         self.species = np.asarray(species, dtype=object)
         self.masses = np.asarray(masses, dtype=float)
-        self.com = {s: [] for s in dict.fromkeys(species)}
+        self.com = {s: [] for s in dict.fromkeys(species)}  # tracks of frames not yet written
+        c = h5.create_group("centre_of_mass")
+        c.attrs["note"] = "mass-weighted centre of mass of each species, unwrapped"
+        self.com_ds = {}
+        for s in self.com:  # written as the frames come, so memory does not grow with them
+            self.com_ds[s] = c.create_dataset(s, (0, 3), maxshape=(None, 3), dtype="f8",
+                                              chunks=(4096, 3))
+            self.com_ds[s].attrs["unit"] = "Å"
         # buffer whole position chunks before writing, so each HDF5 chunk is written once
         self.buffer_frames = max(self.fchunk, int(buffer_MB * 2**20 // (n * 24)) // self.fchunk
                                  * self.fchunk)
@@ -114,15 +121,14 @@ class _RunWriter:
                 continue
             ds.resize(b, axis=0)
             ds[a:b] = data
+        for s, parts in self.com.items():
+            self.com_ds[s].resize(b, axis=0)
+            self.com_ds[s][a:b] = np.concatenate(parts)
+            parts.clear()
         self.n_frames = b
 
     def close(self):
         self.flush()
-        g = self.h5.create_group("centre_of_mass")
-        g.attrs["note"] = "mass-weighted centre of mass of each species, unwrapped"
-        for s, parts in self.com.items():
-            d = g.create_dataset(s, data=np.concatenate(parts) if parts else np.zeros((0, 3)))
-            d.attrs["unit"] = "Å"
 
 
 def _write_root_attrs(h5, temperature_K, frame_interval_ps, provenance):

@@ -18,19 +18,24 @@ Positions are returned as VASP writes them, wrapped into the cell
 numbers: with ``NBLOCK`` > 1 they count output blocks, not MD steps, and the file
 does not say which; ``steps`` is None. The LAMMPS-only ``units`` argument is
 ignored here.
+
+Speed: the coordinate lines of many frames are converted at once (fixed-width
+columns, see :mod:`diffkit.io._parsing`); with a constant cell and fixed-width
+lines the frames are not even walked one by one. Whatever that bulk path does
+not recognise is read line by line, which names the file, frame and line of
+any problem.
 """
 
 from __future__ import annotations
 
-import itertools
 from dataclasses import dataclass
 
 import numpy as np
 
 from ..errors import InputError
 from . import FrameChunk
-from ._parsing import (BadLine, LineSource, chunk_frames, element_symbol, is_number_line,
-                       normalize_type_map, opened, parse_columns, warn)
+from ._parsing import (BadLine, FixedWidthLayout, chunk_frames, decode_fields, element_symbol,
+                       is_number_line, normalize_type_map, opened, parse_columns, warn)
 
 __all__ = ["sniff", "iter_chunks"]
 
@@ -87,8 +92,8 @@ class _Header:
 
 
 class _XdatcarReader:
-    def __init__(self, stream, name, frames_per_chunk, type_map):
-        self.src = LineSource(stream, name)
+    def __init__(self, src, name, frames_per_chunk, type_map):
+        self.src = src
         self.name = name
         self.frames_per_chunk = frames_per_chunk
         self.type_map = normalize_type_map(type_map, name)
@@ -120,6 +125,7 @@ class _XdatcarReader:
         lattice = np.array(lattice)
         names_line = body[4]
         counts = _ints(names_line)
+        self._header_tail = [names_line]
         if counts is not None:  # VASP 4: no element names line
             counts_line, counts_lineno, names = names_line, title_line + 5, None
         else:
@@ -128,6 +134,7 @@ class _XdatcarReader:
             if not counts_line:
                 return None
             counts = _ints(counts_line)
+            self._header_tail.append(counts_line)
             if not counts:
                 raise self._error(frame, counts_lineno,
                                   f"expected the atom counts per element, found "
@@ -164,6 +171,9 @@ class _XdatcarReader:
         return symbols
 
     def _scale(self, scale, lattice, frame, lineno):
+        """Cell (Å) and Cartesian factor; ``lineno`` is the scale line, the lattice follows."""
+        if abs(np.linalg.det(lattice)) < 1e-12:
+            raise self._error(frame, lineno + 1, "lattice vectors span no volume")
         if len(scale) == 3:
             s = np.array(scale)
             if np.any(s <= 0):
@@ -174,11 +184,11 @@ class _XdatcarReader:
         if s == 0:
             raise self._error(frame, lineno, "scale factor is zero")
         if s < 0:  # the volume in Å³
-            det = abs(np.linalg.det(lattice))
-            if det == 0:
-                raise self._error(frame, lineno, "lattice vectors span no volume")
-            s = (-s / det) ** (1.0 / 3.0)
-        return lattice * s, np.full(3, s)
+            s = (-s / abs(np.linalg.det(lattice))) ** (1.0 / 3.0)
+        cell = lattice * s
+        if abs(np.linalg.det(cell)) < 1e-12:
+            raise self._error(frame, lineno, f"scale factor {scale[0]:g} leaves no volume")
+        return cell, np.full(3, s)
 
     # -- frames ---------------------------------------------------------------------
     def chunks(self):
@@ -186,13 +196,18 @@ class _XdatcarReader:
         first = src.next_nonblank()
         if not first:
             raise InputError(f"{self.name}: line 1: file is empty, expected an XDATCAR header")
+        title_lineno = src.lineno
         header = self._read_header(first, 1)
         if header is None:
             raise InputError(f"{self.name}: frame 1 (line {src.lineno}): the file ends inside "
                              "the header; no complete frame")
         self.header = header
         self.title = first.strip()
+        self.title_line = first
+        self.header_lines = src.lineno - title_lineno + 1
+        self._names_counts = list(self._header_tail)
         n = len(header.species)
+        self.n = n
         k = chunk_frames(self.frames_per_chunk, n)
         cfg = src.readline()
         if not cfg:
@@ -201,58 +216,338 @@ class _XdatcarReader:
         if not _is_config(cfg):
             raise self._error(1, src.lineno, f"expected a 'Direct configuration=' line, found "
                                              f"{cfg.strip()[:60]!r}")
-        cell, factor = header.cell, header.cart_factor
-        pending = []  # (coordinate lines, cell, factor or None for Direct, config line number)
-        n_done = 0  # complete frames yielded or pending
-        first_in_chunk = 0
-        last_lines, last_cfg = None, None
+        # the frame whose coordinate lines come next: its configuration line, cell, factor
+        self.next = (cfg, header.cell, header.cart_factor, src.lineno)
+        self.repeated = None   # header repeated before every frame (variable cell)? unknown yet
+        self.n_done = 0        # complete frames read
+        self.last_lines = None
+        self.layout = None
+        pieces, count, first_in_chunk = [], 0, 0
+        bulk = True
         while True:
-            cfg_lineno = src.lineno
-            frame = n_done + 1
-            lines = src.take(n)
-            if len(lines) < n:
-                self._dropped(frame, cfg_lineno, len(lines), n)
+            if bulk:
+                status, m = self._bulk(k - count, pieces)
+                count += m
+                if count == k:
+                    yield self._build(pieces, first_in_chunk, n)
+                    first_in_chunk += count
+                    pieces, count = [], 0
+                if status == "end":
+                    break
+                if status == "more":
+                    continue
+                bulk = False  # line by line until this chunk is full
+            if not self._careful_body(pieces):
                 break
-            pending.append((lines, cell, factor if _is_cartesian(cfg) else None, cfg_lineno))
-            last_lines, last_cfg = lines, cfg_lineno
-            n_done += 1
-            if len(pending) == k:
-                yield self._build(pending, first_in_chunk, n)
-                first_in_chunk += len(pending)
-                pending = []
-            line = src.next_nonblank()
-            if not line:
-                if src.cut:
-                    self._dropped(frame + 1, src.lineno, 0, n)
+            count += 1
+            if count == k:
+                yield self._build(pieces, first_in_chunk, n)
+                first_in_chunk += count
+                pieces, count = [], 0
+                bulk = True
+            if not self._careful_header():
                 break
-            start = src.lineno
-            if _is_config(line):
-                cfg = line
-                continue
-            if is_number_line(line, 3):
-                self._atom_count_error(n_done, last_cfg, last_lines, n)
-            new = self._read_header(line, frame + 1)
-            if new is None:
-                self._dropped(frame + 1, start, 0, n)
-                break
-            if len(new.species) != n:
-                raise self._error(frame + 1, start, f"{len(new.species)} atoms, expected {n}")
-            if new.species != header.species:
-                raise self._error(frame + 1, start,
-                                  "element names or counts differ from the first frame's")
-            cell, factor = new.cell, new.cart_factor
-            cfg = src.readline()
-            if not cfg:
-                self._dropped(frame + 1, start, 0, n)
-                break
-            if not _is_config(cfg):
-                raise self._error(frame + 1, src.lineno, f"expected a 'Direct configuration=' "
-                                                         f"line, found {cfg.strip()[:60]!r}")
-        if pending:
-            yield self._build(pending, first_in_chunk, n)
-        elif n_done == 0:
+        if pieces:
+            yield self._build(pieces, first_in_chunk, n)
+        elif self.n_done == 0:
             raise InputError(f"{self.name}: no complete frame (the first frame, line "
                              f"{src.lineno}, is cut off)")
+
+    # -- the careful path: one frame, line by line ----------------------------------------
+    def _careful_body(self, pieces):
+        """Read the coordinate lines of the next frame; False when the file ends inside them."""
+        n = self.n
+        cfg, cell, factor, cfg_lineno = self.next
+        frame = self.n_done + 1
+        lines = self.src.take(n)
+        if len(lines) < n:
+            self._dropped(frame, cfg_lineno, len(lines), n)
+            return False
+        pieces.append(("lines", lines, cell, factor if _is_cartesian(cfg) else None, cfg_lineno))
+        self.last_lines, self.last_cfg = lines, cfg_lineno
+        self.n_done += 1
+        return True
+
+    def _careful_header(self):
+        """Read what follows a frame: its successor's configuration line (and header)."""
+        src, n = self.src, self.n
+        frame = self.n_done
+        header = self.header
+        line = src.next_nonblank()
+        if not line:
+            if src.cut:
+                self._dropped(frame + 1, src.lineno, 0, n)
+            return False
+        start = src.lineno
+        if _is_config(line):
+            cfg_tuple = self.next
+            self.next = (line, cfg_tuple[1], cfg_tuple[2], src.lineno)
+            return True
+        if is_number_line(line, 3):
+            self._atom_count_error(self.n_done, self.last_cfg, self.last_lines, n)
+        new = self._read_header(line, frame + 1)
+        if new is None:
+            self._dropped(frame + 1, start, 0, n)
+            return False
+        if len(new.species) != n:
+            raise self._error(frame + 1, start, f"{len(new.species)} atoms, expected {n}")
+        if new.species != header.species:
+            raise self._error(frame + 1, start,
+                              "element names or counts differ from the first frame's")
+        cfg = src.readline()
+        if not cfg:
+            self._dropped(frame + 1, start, 0, n)
+            return False
+        if not _is_config(cfg):
+            raise self._error(frame + 1, src.lineno, f"expected a 'Direct configuration=' "
+                                                     f"line, found {cfg.strip()[:60]!r}")
+        self.next = (cfg, new.cell, new.cart_factor, src.lineno)
+        return True
+
+    # -- the bulk path: many frames at once -----------------------------------------------
+    def _bulk(self, want, pieces):
+        """Read up to ``want`` frames in bulk.
+
+        Returns ``(status, m)``: ``m`` frames appended to ``pieces`` as one
+        decoded piece; status "more" (go on in bulk), "end" (the file ended
+        cleanly after the last of them) or "stuck" (the next frame needs the
+        careful path; nothing of it was read).
+        """
+        src, n = self.src, self.n
+        if (self.repeated is False and self.layout is not None and self.layout.ok
+                and self.next[0].lstrip().lower().startswith(("direct", "cartesian"))):
+            got = self._bulk_periodic(want, pieces)
+            if got is not None:
+                return got
+        est = getattr(self, "_frame_bytes", 64 * (n + 8))
+        src.fill(int(est * want * 1.05) + 4096)
+        buf, p0 = src.buf, src.pos
+        repeated = self.repeated
+        if repeated is None:
+            marker = None
+        elif repeated:
+            marker = b"\n" + self.title_line.encode("utf-8")
+        else:
+            marker = b"\n" + self.next[0].split()[0].encode("utf-8")
+        bodies, cfgs, marks, keys = [], [], [], []
+        cfg, cell, factor, cfg_lineno = self.next
+        p = p0
+        nlines = 0
+        status = "stuck"
+        while len(bodies) < want:
+            if marker is None:  # the second frame tells whether the header repeats
+                marker = self._learn_layout(buf, p)
+                if marker is None:
+                    break
+                repeated = self.repeated
+            lay = self.layout
+            e = p + n * lay.width if lay is not None and lay.ok else -1
+            if 0 < e <= len(buf) and buf[e - 1] == 10 and (
+                    buf.startswith(marker, e - 1) or (e == len(buf) and src.eof)):
+                # fixed-width lines: the decoder checks every line's length and newline
+                q = e - 1 if e < len(buf) else -1
+            else:
+                q = buf.find(marker, p)
+                if q < 0 and not bodies and not src.eof:
+                    src.fill(2 * (len(buf) - p0) + 4096)  # not even one frame in view
+                    buf, p0, p = src.buf, src.pos, src.pos
+                    continue
+                if q < 0:
+                    if not src.eof or not buf.endswith(b"\n"):
+                        status = "more" if bodies else "stuck"
+                        break
+                    e = len(buf)
+                else:
+                    e = q + 1
+                if buf.count(b"\n", p, e) != n:
+                    break
+            if q < 0:  # the last frame of the file
+                bodies.append((p, e))
+                cfgs.append((cfg, cfg_lineno))
+                nlines += n
+                p = e
+                marks.append((p, nlines, None))
+                status = "end"
+                break
+            nxt = self._bulk_header(buf, e, cfg_lineno + n)
+            if nxt is None:
+                break
+            bodies.append((p, e))
+            cfgs.append((cfg, cfg_lineno))
+            (cfg, cfg_lineno, key), p, used = nxt
+            nlines += n + used
+            marks.append((p, nlines, (cfg, cfg_lineno)))
+            keys.append(key)
+        else:
+            status = "more"
+        # the cells: the first frame's is known, each header read gives the next frame's
+        cells = [(cell, factor)]
+        if repeated and keys:
+            cells += self._cells_of(keys)
+            if len(cells) < len(bodies) + (status != "end"):  # a header only the careful path reads
+                keep = len(cells) - 1
+                bodies, cfgs, marks = bodies[:keep], cfgs[:keep], marks[:keep]
+                status = "stuck"
+        else:
+            cells = cells * (len(bodies) + 1)
+        if not bodies:
+            return ("end", 0) if status == "end" else ("stuck", 0)
+        m = len(bodies)
+        values = self._decode_bodies(buf, bodies)
+        if values is None:
+            return "stuck", 0
+        p, nlines, nxt = marks[-1]
+        self._frame_bytes = max(64, (p - p0) / m)
+        factors = [f if _is_cartesian(c) else None for (c, _), (_, f) in zip(cfgs, cells)]
+        pieces.append(("values", values.reshape(m, n, 3), np.array([c for c, _ in cells[:m]]),
+                       factors, [ln for _, ln in cfgs]))
+        self.n_done += m
+        if nxt is not None:
+            self.next = (nxt[0], cells[m][0], cells[m][1], nxt[1])
+        src.consume(p - p0, nlines)
+        return status, m
+
+    def _cells_of(self, keys):
+        """(cell, factor) of each repeated header's scale and lattice lines, read together.
+
+        Stops before the first header that only the careful path may judge.
+        """
+        m = len(keys)
+        scales = decode_fields(b"".join(k[0] for k in keys), m, 1, [0], dotted=[0])
+        lattices = decode_fields(b"".join(k[1] for k in keys), 3 * m, 3, [0, 1, 2],
+                                 dotted=[0, 1, 2])
+        if scales is not None and lattices is not None and (scales[0] > 0).all():
+            s = scales[0][:, 0]
+            lattice = lattices[0].reshape(m, 3, 3)
+            cells = lattice * s[:, None, None]
+            bad = (np.abs(np.linalg.det(lattice)) < 1e-12) | (np.abs(np.linalg.det(cells)) < 1e-12)
+            good = m if not bad.any() else int(np.argmax(bad))
+            return [(cells[i], np.full(3, s[i])) for i in range(good)]
+        out = []  # one by one, as the careful path reads them
+        for scale_line, lattice_lines in keys:
+            lines = [x.decode("utf-8", "replace") for x in
+                     [scale_line] + lattice_lines.splitlines(keepends=True)]
+            new = _parse_cell(lines)
+            if new is None:
+                break
+            try:
+                out.append(self._scale(new[0], new[1], 0, 0))
+            except InputError:
+                break
+        return out
+
+    def _bulk_periodic(self, want, pieces):
+        """Constant cell, fixed-width lines: every frame has the same length; no loop over frames.
+
+        Returns ``(status, m)`` as :meth:`_bulk`, or None when the frames in view
+        do not have that layout (the general bulk path then reads them).
+        """
+        src, n, lay = self.src, self.n, self.layout
+        body = n * lay.width
+        cfg, cell, factor, cfg_lineno = self.next
+        word = cfg.split()[0].encode("utf-8")
+        src.fill(int(getattr(self, "_frame_bytes", body + 32) * want * 1.05) + 4096)
+        buf, p0 = src.buf, src.pos
+        e = p0 + body
+        if e >= len(buf) or not buf.startswith(word, e):
+            return None
+        r = buf.find(b"\n", e)
+        if r < 0:
+            return None
+        period = body + r + 1 - e  # coordinate lines and the next configuration line
+        m = min(want, (len(buf) - p0) // period)
+        if m < 1:
+            return None
+        cfgs = np.ndarray((m, r + 1 - e), np.uint8, buffer=buf, offset=e, strides=(period, 1))
+        good = (cfgs[:, :len(word)] == np.frombuffer(word, np.uint8)).all(axis=1)
+        good &= cfgs[:, -1] == 10
+        good &= ~(cfgs[:, :-1] == 10).any(axis=1)
+        if not good.all():
+            m = int(np.argmin(good))
+            if m < 1:
+                return None
+        rows = np.ndarray((m, n, lay.width), np.uint8, buffer=buf, offset=p0,
+                          strides=(period, lay.width, 1))
+        values = lay.decode(rows)
+        del rows, cfgs
+        if values is None:
+            return None
+        last = e + (m - 1) * period
+        nxt = buf[last:last + period - body].decode("utf-8", "replace")
+        f = factor if _is_cartesian(cfg) else None
+        pieces.append(("values", values.reshape(m, n, 3), np.broadcast_to(cell, (m, 3, 3)),
+                       [f] * m, None))
+        self.n_done += m
+        self.next = (nxt, cell, factor, cfg_lineno + m * (n + 1))
+        self._frame_bytes = period
+        src.consume(m * period, m * (n + 1))
+        return "more", m
+
+    def _learn_layout(self, buf, p):
+        """After the first frame's coordinates: does a header or a configuration line follow?"""
+        e = buf.find(b"\n", p)
+        for _ in range(self.n - 1):
+            if e < 0:
+                return None
+            e = buf.find(b"\n", e + 1)
+        if e < 0 or e + 1 >= len(buf):
+            return None
+        e += 1
+        line = buf[e:buf.find(b"\n", e) + 1].decode("utf-8", "replace")
+        if _is_config(line):
+            self.repeated = False
+            return b"\n" + self.next[0].split()[0].encode("utf-8")
+        if line == self.title_line:
+            self.repeated = True
+            return b"\n" + self.title_line.encode("utf-8")
+        return None
+
+    def _bulk_header(self, buf, e, lineno):
+        """Read what follows a frame's coordinates at ``buf[e:]`` without raising.
+
+        Returns ((cfg, cfg_lineno, key), position after it, lines used), where
+        ``key`` holds a repeated header's scale line and lattice lines (bytes)
+        or is None; or None when it is not a clean configuration line (and header).
+        """
+        lines = []
+        q = e
+        for _ in range(self.header_lines + 1 if self.repeated else 1):
+            r = buf.find(b"\n", q)
+            if r < 0:
+                return None
+            lines.append(buf[q:r + 1])
+            q = r + 1
+        key = None
+        if self.repeated:
+            head = [x.decode("utf-8", "replace") for x in lines[:1] + lines[5:-1]]
+            if head[0] != self.title_line or head[1:] != self._names_counts:
+                return None
+            key = (lines[1], b"".join(lines[2:5]))
+        cfg = lines[-1].decode("utf-8", "replace")
+        if not _is_config(cfg) or not cfg.endswith("\n"):
+            return None
+        return (cfg, lineno + len(lines), key), q, len(lines)
+
+    def _decode_bodies(self, buf, bodies):
+        """(m * n, 3) numbers of the frames' coordinate lines, or None."""
+        n = self.n
+        view = memoryview(buf)
+        data = b"".join(view[a:b] for a, b in bodies)
+        sizes = {b - a for a, b in bodies}
+        if self.layout is None:
+            first = buf[bodies[0][0]:buf.find(b"\n", bodies[0][0]) + 1]
+            self.layout = FixedWidthLayout(first)
+        lay = self.layout
+        if lay.ok and sizes == {n * lay.width}:
+            rows = np.frombuffer(data, np.uint8).reshape(-1, lay.width)
+            values = lay.decode(rows)
+            if values is not None:
+                return values
+            # frames were cut by length: make sure each holds n lines before reading by fields
+            if any(buf.count(b"\n", a, b) != n for a, b in bodies):
+                return None
+        got = decode_fields(data, n * len(bodies), 3, (0, 1, 2), dotted=(0, 1, 2))
+        return None if got is None else got[0]
 
     def _dropped(self, frame, lineno, got, n):
         how = f"the file ends after {got} of its {n} atom lines"
@@ -277,25 +572,52 @@ class _XdatcarReader:
             extra += 1
         raise self._error(frame, cfg_lineno, f"{n + extra} atoms, expected {n}")
 
-    def _build(self, pending, first_frame, n):
-        all_lines = list(itertools.chain.from_iterable(p[0] for p in pending))
-        try:
-            values = parse_columns(all_lines, (0, 1, 2), min_fields=3)
-        except BadLine as bad:
-            j, i = divmod(bad.index, n)
-            lines, _, _, cfg_lineno = pending[j]
-            frame = first_frame + j + 1
-            if _is_config(lines[i]) or lines[i].strip() == self.title:
-                raise self._error(frame, cfg_lineno, f"{i} atoms, expected {n}") from None
-            raise self._error(frame, cfg_lineno + 1 + i, bad.reason) from None
-        values = values.reshape(len(pending), n, 3)
-        cells = np.array([p[1] for p in pending])
+    def _build(self, pieces, first_frame, n):
+        values, cells, factors = [], [], []
+        j = 0  # frame index within the chunk
+        for piece in pieces:
+            if piece[0] == "values":
+                _, vals, c, f, _ = piece
+                values.append(vals)
+                cells.append(c)
+                factors.extend(f)
+                j += len(vals)
+                continue
+            _, lines, cell, factor, cfg_lineno = piece
+            try:
+                vals = parse_columns(lines, (0, 1, 2), min_fields=3)
+            except BadLine as bad:
+                i = bad.index
+                frame = first_frame + j + 1
+                if _is_config(lines[i]) or lines[i].strip() == self.title:
+                    raise self._error(frame, cfg_lineno, f"{i} atoms, expected {n}") from None
+                raise self._error(frame, cfg_lineno + 1 + i, bad.reason) from None
+            values.append(vals.reshape(1, n, 3))
+            cells.append(cell[None])
+            factors.append(factor)
+            j += 1
+        values = np.concatenate(values)
+        cells = np.concatenate(cells)
         positions = np.matmul(values, cells)
-        for j, p in enumerate(pending):
-            if p[2] is not None:  # Cartesian block
-                positions[j] = values[j] * p[2][None, :]
+        for i, f in enumerate(factors):
+            if f is not None:  # Cartesian block
+                positions[i] = values[i] * f[None, :]
         return FrameChunk(species=self.header.species, cells=cells, positions=positions,
                           kind="wrapped", first_frame=first_frame, source=self.name)
+
+
+def _parse_cell(lines):
+    """(scale, lattice) from the scale and three lattice lines, or None if they are not clean."""
+    scale = _floats(lines[0])
+    if not scale or len(scale) not in (1, 3) or not np.all(np.isfinite(scale)):
+        return None
+    lattice = []
+    for line in lines[1:4]:
+        v = _floats(line)
+        if v is None or len(v) != 3 or not np.all(np.isfinite(v)):
+            return None
+        lattice.append(v)
+    return scale, np.array(lattice)
 
 
 def iter_chunks(path, *, frames_per_chunk=1000, type_map=None, units=None):
@@ -321,8 +643,9 @@ def iter_chunks(path, *, frames_per_chunk=1000, type_map=None, units=None):
     ------
     InputError
         Empty file, no complete frame, atom count or species changing, text or
-        NaN where coordinates belong, unknown element. A cut-off last frame is
-        dropped with a :class:`~diffkit.errors.DiffkitWarning`.
+        NaN where coordinates belong, unknown element, lattice vectors without
+        volume. A cut-off last frame is dropped with a
+        :class:`~diffkit.errors.DiffkitWarning`.
     """
-    with opened(path) as (stream, name):
-        yield from _XdatcarReader(stream, name, frames_per_chunk, type_map).chunks()
+    with opened(path) as (src, name):
+        yield from _XdatcarReader(src, name, frames_per_chunk, type_map).chunks()
