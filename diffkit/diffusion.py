@@ -415,26 +415,68 @@ def _params_from_fit(beta, t, y_axes, dt, scale, first=None):
     return s2, v2
 
 
+def _gls_fit_weights(t, y_axes, dt, parts, kappa, scale):
+    """GLS weights of a window, with the model parameters fitted and refined once.
+
+    Parameters
+    ----------
+    t : (p,) float, ps
+    y_axes : (p, 3) float, Å^2
+    dt : float, ps
+    parts : (4, p, p) float
+        ``_cov_parts`` of the window's lags.
+    kappa : float, Å^4 per frame
+        Fourth-cumulant rate.
+    scale : float, Å^2
+        Largest |MSD| of the curve (floor of the variances).
+
+    Returns
+    -------
+    W : (2, p) float
+        Offset and slope rows: (c, b) = W @ y.
+    s2, v2 : (3,) float, Å^2
+        Refined step and noise variances.
+    """
+    s2, v2 = _model_params(t, y_axes, dt)
+    W = _gls_weights(t, _combine(parts, s2, v2, kappa))
+    s2, v2 = _params_from_fit(W @ y_axes, t, y_axes, dt, scale)   # refine with GLS values
+    W = _gls_weights(t, _combine(parts, s2, v2, kappa))
+    return W, s2, v2
+
+
 def choose_fit_window(curve, *, max_window_fraction=1 / 3, relative_tolerance=0.1,
-                      slope_tolerance=0.02, z_tolerance=3.0, min_points=4):
+                      slope_tolerance=0.02, z_tolerance=3.0, min_points=4,
+                      drift_tolerance=0.01, drift_z=2.0, settled_z=1.0):
     """Automatic fit window on the thinned lag grid.
 
     The end is ``max_window_fraction`` of the run (before the poorly averaged
-    tail). The start is the earliest sampled lag s such that, after fitting
-    MSD = c + b t by least squares on [s, end], every sampled lag t in the
-    early half of the window on a log scale, s <= t <= sqrt(s end), satisfies
-    |MSD(t) - c - b t| <= max(z se_r(t), tol |b| t), and the local slope
-    between neighbouring sampled lags there is within max(z se, slope_tol |b|)
-    of b (the ballistic and cage regime bends the start of the curve; the
-    weighted fit leans on the early lags, so their slope must already be the
-    diffusive one; the scatter of the long lags is left to the fit's weights):
-    linearity is judged on the MSD minus its fitted offset, so a vibrational
-    plateau does not count as sub-diffusion, while the ballistic and cage
-    regime (MSD below its linear asymptote by about the offset) is skipped.
-    se_r(t) is the standard error of that residual, from the spread of the
-    same residual over ions (or from the random-walk model when there are
-    fewer than 2 ions or no per-ion curves). The window must span at least a
-    factor 2 in time.
+    tail). The start is the earliest sampled lag s that passes two tests
+    (docs/methods_diffusion.md, section 2):
+
+    *Linearity.* After fitting MSD = c + b t by least squares on [s, end],
+    every sampled lag t in the early half of the window on a log scale,
+    s <= t <= sqrt(s end), satisfies |MSD(t) - c - b t| <= max(z se_r(t),
+    tol |b| t), and the local slope between neighbouring sampled lags there
+    is within max(z se, slope_tol |b|) of b. Linearity is judged on the MSD
+    minus its fitted offset, so a vibrational plateau does not count as
+    sub-diffusion, while the ballistic and cage regime is skipped.
+
+    *Settled slope.* The GLS estimate leans on the first lags of its window,
+    so a slope that is still relaxing there (the cage rebound of a liquid,
+    whose velocity autocorrelation goes negative, or the ballistic rise)
+    biases it even when the curve looks straight. With D(s) the GLS estimate
+    of the window [s, end] and s' the first sampled lag at or after 2 s, the
+    drift |D(s) - D(s')| must be at most max(z_d se_drift, drift_tol D(s)).
+    z_d is ``drift_z`` until some start fails this test (a drift beyond 2
+    standard errors shows that a transient is present), and ``settled_z``
+    from then on, so that the bias left in D is small against its error bar.
+    Starts past end/4, where [s', end] would span less than a factor 2, are
+    not tested (the note says so if a drift had been seen).
+
+    The standard errors se_r, se and se_drift come from the spread of the
+    same linear combination of the MSD over ions (or from the random-walk
+    model when there are fewer than 2 ions or no per-ion curves). The window
+    must span at least a factor 2 in time.
 
     Parameters
     ----------
@@ -446,20 +488,25 @@ def choose_fit_window(curve, *, max_window_fraction=1 / 3, relative_tolerance=0.
     slope_tolerance : float
         Allowed relative departure of the local slope from b.
     z_tolerance : float
-        Allowed departure in standard errors.
+        Allowed departure in standard errors (linearity).
     min_points : int
         Sampled lags the window must hold.
+    drift_tolerance : float
+        Drift of D between starts s and s' that is always accepted (relative).
+    drift_z, settled_z : float
+        Allowed drift in standard errors, before and after a drift was found.
 
     Returns
     -------
     (i0, i1) : tuple of int or None
         Positions in ``curve.ion_lag_index`` of the first and last lag, or None.
     note : str
-        Why no window was found; or, for a single path where no start passes,
-        the note that the window is the least non-linear one ("" otherwise).
+        Why no window was found; or, when no start passes every test, how the
+        start was chosen instead ("" otherwise).
     """
     lag_idx = curve.ion_lag_index
     n = curve.n_frames
+    dt = curve.frame_interval_ps
     end_lag = int(math.floor(max_window_fraction * (n - 1)))
     end_lag = min(end_lag, int(lag_idx[-1]) if len(lag_idx) else 0)
     inside = np.flatnonzero(lag_idx <= end_lag)
@@ -467,51 +514,103 @@ def choose_fit_window(curve, *, max_window_fraction=1 / 3, relative_tolerance=0.
         return None, (f"the run has {n} frames; lags up to {max_window_fraction:.2g} of it hold "
                       f"{len(inside)} sampled lags, fewer than the {min_points} a fit needs")
     i1 = int(inside[-1])
-    t = curve.lag_ps[lag_idx[:i1 + 1]]
-    y = curve.msd_A2[lag_idx[:i1 + 1]]
+    lags_all = lag_idx[:i1 + 1]
+    t = curve.lag_ps[lags_all]
+    y = curve.msd_A2[lags_all]
+    y_axes_all = curve.msd_axes_A2[lags_all]
+    scale = float(np.max(np.abs(curve.msd_A2)))
+    parts_all = _cov_parts(lags_all, n)
     per_ion = curve.has_per_ion and curve.n_ions >= 2
     if per_ion:
         y_ion = curve.ion_msd_A2[:, :i1 + 1]
     else:
-        s2, v2 = _model_params(t, curve.msd_axes_A2[lag_idx[:i1 + 1]], curve.frame_interval_ps)
-        kappa = _excess_rate(curve, t[0], t[-1]) * curve.frame_interval_ps
-        cov = _combine(_cov_parts(lag_idx[:i1 + 1], n), s2, v2, kappa) / max(curve.n_ions, 1)
-    best = (np.inf, None)
+        s2, v2 = _model_params(t, y_axes_all, dt)
+        kappa = _excess_rate(curve, t[0], t[-1]) * dt
+        cov = _combine(parts_all, s2, v2, kappa) / max(curve.n_ions, 1)
+
+    def spread(g):
+        """Standard error of g @ MSD (g of shape (k, i1 + 1) or (i1 + 1,))."""
+        if per_ion:
+            return (y_ion @ np.atleast_2d(g).T).std(axis=0, ddof=1) / math.sqrt(curve.n_ions)
+        g = np.atleast_2d(g)
+        return np.sqrt(np.clip(np.einsum("ij,jk,ik->i", g, cov, g), 0, None))
+
+    slope_rows = {}
+
+    def gls_slope_row(i0):
+        """GLS slope weights of the window [i0, i1], padded to i1 + 1 lags."""
+        if i0 not in slope_rows:
+            sl = slice(i0, i1 + 1)
+            kap = _excess_rate(curve, t[i0], t[i1]) * dt
+            W, _, _ = _gls_fit_weights(t[sl], y_axes_all[sl], dt, parts_all[:, sl, sl], kap,
+                                       max(scale, 1e-300))
+            row = np.zeros(i1 + 1)
+            row[sl] = W[1]
+            slope_rows[i0] = row
+        return slope_rows[i0]
+
+    best = (np.inf, None)              # least departing start (single path)
+    least_drift = (np.inf, None)       # linear start with the least drift
+    z_drift = drift_z
     for i0 in range(0, i1 - min_points + 2):
         if t[i1] < 2.0 * t[i0]:
             break
+        m = i1 + 1 - i0
         sl = slice(i0, i1 + 1)
         W = _ols_weights(t[sl])
         c, b = W @ y[sl]
-        R = np.eye(i1 + 1 - i0) - _design(t[sl]) @ W       # residual operator
-        if per_ion:
-            se = (y_ion[:, sl] @ R.T).std(axis=0, ddof=1) / math.sqrt(curve.n_ions)
-        else:
-            se = np.sqrt(np.clip(np.einsum("ij,jk,ik->i", R, cov[sl, sl], R), 0, None))
+        R = np.zeros((m, i1 + 1))
+        R[:, sl] = np.eye(m) - _design(t[sl]) @ W          # residual operator
+        se = spread(R)
         resid = np.abs(y[sl] - c - b * t[sl])
         tol = np.maximum(z_tolerance * se, relative_tolerance * abs(b) * t[sl])
         early = t[sl] <= math.sqrt(t[i0] * t[i1]) * (1 + 1e-12)
         early[:2] = True
         # local slopes between neighbouring sampled lags of the early part against b
         ne = int(early.sum())
-        G = np.zeros((ne, i1 + 1 - i0))
+        G = np.zeros((ne, i1 + 1))
         for r in range(ne):
             w = 1.0 / (t[i0 + r + 1] - t[i0 + r])
-            G[r, r], G[r, r + 1] = -w, w
-        G -= W[1][None, :]                                  # local slope minus fitted slope
-        if per_ion:
-            se_g = (y_ion[:, sl] @ G.T).std(axis=0, ddof=1) / math.sqrt(curve.n_ions)
-        else:
-            se_g = np.sqrt(np.clip(np.einsum("ij,jk,ik->i", G, cov[sl, sl], G), 0, None))
-        dev_g = np.abs(G @ y[sl])
+            G[r, i0 + r], G[r, i0 + r + 1] = -w, w
+        G[:, sl] -= W[1][None, :]                           # local slope minus fitted slope
+        se_g = spread(G)
+        dev_g = np.abs(G @ y)
         tol_g = np.maximum(z_tolerance * se_g, slope_tolerance * abs(b))
         ratio = np.concatenate([(resid / np.maximum(tol, 1e-300))[early],
                                 dev_g / np.maximum(tol_g, 1e-300)])
-        if np.all(ratio <= 1.0 + 1e-9):
-            return (i0, i1), ""
         worst = float(np.max(ratio))
+        note = ""
+        if worst <= 1.0 + 1e-9 and scale > 0:
+            # settled slope: D(s) against D(s'), s' = 2 s, same end; testable while [s', end]
+            # still spans a factor 2
+            j = int(np.searchsorted(t, 2.0 * t[i0] * (1 - 1e-12)))
+            if t[i1] < 2.0 * t[min(j, i1)] or j > i1 - min_points + 1:
+                if least_drift[1] is not None:
+                    note = (f"the slope of the MSD was still drifting at a start of "
+                            f"{t[least_drift[1]]:.3g} ps (D from [s, end] against D from "
+                            f"[2s, end]); the window starts at the first start past end/4, where "
+                            "the drift can no longer be tested: treat D with care")
+            else:
+                h0 = gls_slope_row(i0)
+                g = h0 - gls_slope_row(j)
+                drift = abs(float(g @ y))
+                allowed = max(z_drift * float(spread(g)[0]), drift_tolerance * abs(float(h0 @ y)))
+                r_drift = drift / max(allowed, 1e-300)
+                if r_drift > 1.0 + 1e-9:
+                    z_drift = settled_z                     # a transient is present
+                    if r_drift < least_drift[0]:
+                        least_drift = (r_drift, i0)
+                worst = max(worst, r_drift)
+        if worst <= 1.0 + 1e-9:
+            return (i0, i1), note
         if worst < best[0]:
             best = (worst, i0)
+    if least_drift[1] is not None:
+        return (least_drift[1], i1), (
+            "the slope of the MSD still drifts at every linear start up to end/4 (D from "
+            "[s, end] differs from D from [2s, end] by more than its standard error); the "
+            f"window starts where it drifts least ({least_drift[0]:.2g} x the tolerance): "
+            "treat D with care")
     if not per_ion and best[1] is not None:
         return (best[1], i1), ("a single path (no spread over ions) cannot confirm linearity at "
                                f"{z_tolerance:g} standard errors; the window starts where it "
@@ -716,9 +815,7 @@ def estimate_diffusion(msd_curve, *, window=None, method="gls", max_window_fract
     if method == "ols":
         W = _ols_weights(t)
     else:
-        W = _gls_weights(t, _combine(parts, s2, v2, kappa))
-        s2, v2 = _params_from_fit(W @ y_axes, t, y_axes, dt, scale)   # refine with GLS values
-        W = _gls_weights(t, _combine(parts, s2, v2, kappa))
+        W, s2, v2 = _gls_fit_weights(t, y_axes, dt, parts, kappa, scale)
     h = W[1]
     offset = float(W[0] @ y)
     D_hat = float(h @ y) / (2 * _DIM)
