@@ -8,13 +8,17 @@ Layout of the output folder (``--out``)::
     summary.csv, summary.json            candidates ranked by σ(target)
     report.html                          the self-contained report
     .content-hashes.json                 cache of input SHA-256 by (path, size, mtime)
+    .outputs-key.json                    what the summaries and report were made from
 
 A run is recomputed only when its key — the SHA-256 of its input files'
-contents, its read options, its analysis settings and diffkit's version —
-changed. Every file is written atomically (temporary file, then rename), so a
-campaign killed at any point resumes cleanly: a half-written file is never
-taken as done. Every resampling inside the analysis is seeded from the data,
-so results do not depend on order, pool size or interruptions.
+contents (and of their run cards), its read options, its analysis settings and
+diffkit's version — changed. Runs whose stored key matches are reused in the
+main process without starting a pool or touching the Dask cluster; the
+summaries and the report are rewritten only when what they show changed. Every
+file is written atomically (temporary file, then rename), so a campaign killed
+at any point resumes cleanly: a half-written file is never taken as done.
+Every resampling inside the analysis is seeded from the data, so results do
+not depend on order, pool size or interruptions.
 """
 
 from __future__ import annotations
@@ -28,6 +32,7 @@ import os
 import re
 import traceback
 from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
 from multiprocessing import get_context
 
 from .errors import DiffkitError, InputError, UsageError
@@ -37,6 +42,7 @@ from .io.manifest import read_manifest
 __all__ = ["CampaignResult", "RunOutcome", "run_campaign", "campaign_status", "slug"]
 
 _HASH_CACHE = ".content-hashes.json"
+_OUTPUTS_KEY = ".outputs-key.json"
 
 
 def slug(text):
@@ -107,7 +113,8 @@ class RunOutcome:
     reason: str = ""
 
     def to_dict(self):
-        return dataclasses.asdict(self)
+        # shallow: ``results`` is already plain data (a deep copy costs seconds per campaign)
+        return {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
 
 
 def _analysis_settings(cand, run):
@@ -130,6 +137,8 @@ def _read_options_dict(run):
 
 
 def _plan_tasks(manifest, out_dir, cache):
+    from .io.runcard import find_runcard
+
     tasks = []
     for cand in manifest.candidates:
         labels = set()
@@ -144,7 +153,11 @@ def _plan_tasks(manifest, out_dir, cache):
             read_opts = _read_options_dict(run)
             analysis = _analysis_settings(cand, run)
             try:
-                hashes = [_content_hash(f, cache) for f in run.files]
+                hashes = []
+                for f in run.files:  # a run card beside a file is an input too
+                    card = find_runcard(f) if read_opts.get("use_runcards", True) else None
+                    hashes.append([_content_hash(f, cache),
+                                   None if card is None else _content_hash(card, cache)])
                 key = _run_key(hashes, read_opts, analysis)
             except InputError as exc:
                 hashes, key = None, "unreadable:" + str(exc)
@@ -163,26 +176,47 @@ def _stored_key(run_path):
         return None
 
 
-def _failed_key(failed_path):
+def _failure_record(failed_path):
     try:
         with open(failed_path, encoding="utf-8") as f:
-            return json.load(f).get("input_key")
+            record = json.load(f)
     except (OSError, ValueError):
         return None
+    return record if isinstance(record, dict) else None
+
+
+def _failed_key(failed_path):
+    record = _failure_record(failed_path)
+    return None if record is None else record.get("input_key")
+
+
+def _previous_outcome(task):
+    """The stored outcome of ``task`` if its inputs are unchanged, else None.
+
+    A run file whose key matches is reused; a failure with the same key is
+    reported again without retrying, unless it was unexpected (not a diffkit
+    error: a bug, a full disk, memory), which is tried again.
+    """
+    from .io.store import read_results
+
+    if os.path.exists(task.run_path) and _stored_key(task.run_path) == task.key:
+        return RunOutcome(task.candidate, task.label, "reused", task.run_path,
+                          results=read_results(task.run_path))
+    record = _failure_record(task.failed_path)
+    if record and record.get("input_key") == task.key and not record.get("retry", False):
+        return RunOutcome(task.candidate, task.label, "failed", task.run_path,
+                          reason=record.get("reason", "failed before"))
+    return None
 
 
 def _execute(task):
     """Worker: ingest and analyse one run, or reuse it. Never raises; returns a RunOutcome."""
     from .io.assemble import ReadOptions
-    from .io.store import ingest, open_run, read_results
+    from .io.store import ingest, open_run
 
-    if os.path.exists(task.run_path) and _stored_key(task.run_path) == task.key:
-        return RunOutcome(task.candidate, task.label, "reused", task.run_path,
-                          results=read_results(task.run_path))
-    if _failed_key(task.failed_path) == task.key:  # same inputs failed before: say so again
-        with open(task.failed_path, encoding="utf-8") as f:
-            reason = json.load(f).get("reason", "failed before")
-        return RunOutcome(task.candidate, task.label, "failed", task.run_path, reason=reason)
+    previous = _previous_outcome(task)
+    if previous is not None:
+        return previous
     try:
         if task.key.startswith("unreadable:"):
             raise InputError(task.key[len("unreadable:"):])
@@ -197,6 +231,8 @@ def _execute(task):
                 results = analyse_run(traj, task.analysis)
             finally:
                 traj._store_handle.close()
+            # the trajectory was opened under its temporary name: record the final one
+            results["provenance"] = dict(results.get("provenance") or {}, run_file=task.run_path)
             _store_results(tmp, results, task.key)
         if os.path.exists(task.failed_path):
             os.unlink(task.failed_path)
@@ -206,6 +242,7 @@ def _execute(task):
             f"{type(exc).__name__}: {exc} (unexpected; details in the .failed.json file)"
         record = {"candidate": task.candidate, "label": task.label, "input_key": task.key,
                   "reason": reason.splitlines()[0] if reason else type(exc).__name__,
+                  "retry": not isinstance(exc, DiffkitError),
                   "traceback": traceback.format_exc()}
         os.makedirs(os.path.dirname(task.failed_path), exist_ok=True)
         with atomic_write(task.failed_path) as f:
@@ -277,6 +314,13 @@ def msd_points(curve, n_points=160):
 
 
 # --------------------------------------------------------------------------- runners
+def _lost(task, exc):
+    """The outcome of a run whose worker process died under it (killed, out of memory)."""
+    return RunOutcome(task.candidate, task.label, "failed", task.run_path,
+                      reason=f"its worker process was lost ({type(exc).__name__}: killed, or out "
+                             "of memory?); it is tried again when the campaign is run again")
+
+
 def _run_tasks(tasks, workers, scheduler, progress):
     if not tasks:
         return []
@@ -284,8 +328,6 @@ def _run_tasks(tasks, workers, scheduler, progress):
         return _run_dask(tasks, scheduler, progress)
     if workers is None:
         workers = os.cpu_count() or 1
-    if workers < 1:
-        raise UsageError(f"--workers must be at least 1, got {workers}")
     out = []
     if workers == 1 or len(tasks) == 1:
         for i, t in enumerate(tasks):
@@ -296,8 +338,11 @@ def _run_tasks(tasks, workers, scheduler, progress):
     with ProcessPoolExecutor(max_workers=min(workers, len(tasks)),
                              mp_context=get_context("spawn")) as pool:
         futures = [pool.submit(_execute, t) for t in tasks]
-        for i, fut in enumerate(futures):
-            out.append(fut.result())
+        for i, (t, fut) in enumerate(zip(tasks, futures)):
+            try:
+                out.append(fut.result())
+            except BrokenProcessPool as exc:  # _execute never raises: the process died
+                out.append(_lost(t, exc))
             if progress:
                 progress(i + 1, len(tasks))
     return out
@@ -310,7 +355,10 @@ def _run_dask(tasks, scheduler, progress):
         raise UsageError("running on a Dask cluster needs the optional extra: "
                          "pip install 'diffkit[dask]'") from exc
     own = isinstance(scheduler, str)
-    client = Client(scheduler) if own else scheduler
+    try:
+        client = Client(scheduler) if own else scheduler
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise UsageError(f"cannot reach a Dask scheduler at {scheduler!r}: {exc}") from exc
     try:
         futures = client.map(_execute, tasks, pure=False)
         done = 0
@@ -318,7 +366,13 @@ def _run_dask(tasks, scheduler, progress):
             done += 1
             if progress:
                 progress(done, len(tasks))
-        return client.gather(futures)
+        out = []
+        for t, fut in zip(tasks, futures):
+            try:
+                out.append(fut.result())
+            except Exception as exc:  # _execute never raises: its worker was lost
+                out.append(_lost(t, exc))
+        return out
     finally:
         if own:
             client.close()
@@ -398,11 +452,11 @@ class CampaignResult:
     @property
     def any_unreliable(self):
         """True when a run failed or was judged unreliable (exit code 1 at the command line)."""
-        from .trust import VERDICT_WORST
+        from .trust import VERDICTS
 
         if self.n_failed:
             return True
-        return any(o.results and o.results["assessment"].get("verdict") == VERDICT_WORST
+        return any(o.results and o.results["assessment"].get("verdict") == VERDICTS[-1]
                    for o in self.outcomes)
 
     def to_dict(self):
@@ -422,7 +476,7 @@ def run_campaign(manifest_path, out_dir, *, workers=None, scheduler=None, progre
     Parameters
     ----------
     manifest_path : str
-        The campaign manifest (TOML; see docs/formats.md).
+        The campaign manifest (TOML; see docs/campaigns.md).
     out_dir : str
         Output folder (created).
     workers : int, optional
@@ -438,6 +492,8 @@ def run_campaign(manifest_path, out_dir, *, workers=None, scheduler=None, progre
     -------
     CampaignResult
     """
+    if workers is not None and workers < 1:
+        raise UsageError(f"--workers must be at least 1, got {workers}")
     manifest = read_manifest(manifest_path)
     out_dir = os.path.abspath(out_dir)
     os.makedirs(out_dir, exist_ok=True)
@@ -446,26 +502,91 @@ def run_campaign(manifest_path, out_dir, *, workers=None, scheduler=None, progre
     tasks = _plan_tasks(manifest, out_dir, cache)
     with atomic_write(os.path.join(out_dir, _HASH_CACHE)) as f:
         json.dump(cache, f)
-    outcomes = _run_tasks(tasks, workers, scheduler, progress)
+    # unchanged runs are taken from their files here: no pool or cluster for them
+    outcomes = [_previous_outcome(t) for t in tasks]
+    todo = [i for i, o in enumerate(outcomes) if o is None]
+    n_known = len(tasks) - len(todo)
+    if progress and n_known:
+        progress(n_known, len(tasks))
+    step = None if not progress else (lambda done, _total: progress(n_known + done, len(tasks)))
+    for i, o in zip(todo, _run_tasks([tasks[i] for i in todo], workers, scheduler, step)):
+        outcomes[i] = o
     summaries, cflags = {}, {}
     for cand in manifest.candidates:
         mine = [o for o in outcomes if o.candidate == cand.name]
-        summary, flags = _candidate_summary(cand, mine)
-        summaries[cand.name], cflags[cand.name] = summary, flags
-        data = {"name": cand.name, "flags": flags,
+        summaries[cand.name], cflags[cand.name] = _candidate_summary(cand, mine)
+    result = CampaignResult(manifest.title, out_dir, tuple(outcomes), summaries, cflags, {})
+    # summaries and report are rewritten only when what they are made from changed
+    key = _outputs_key(manifest, result, tasks)
+    stored = _load_outputs_key(out_dir)
+    files = _summary_paths(manifest, out_dir)
+    if stored.get("summaries") != key or not all(map(os.path.isfile, files.values())):
+        _write_candidate_files(manifest, result)
+        _write_summaries(result)
+        stored["summaries"] = key
+        _save_outputs_key(out_dir, stored)
+    files = {k: v for k, v in files.items() if not k.startswith("candidate:")}
+    if report:
+        path = os.path.join(out_dir, "report.html")
+        if stored.get("report") != key or not os.path.isfile(path):
+            from .report.campaign_report import write_campaign_report
+
+            write_campaign_report(path, manifest, result)
+            stored["report"] = key
+            _save_outputs_key(out_dir, stored)  # after the report: a kill between re-renders
+        files["report_html"] = path
+    return dataclasses.replace(result, files=files)
+
+
+def _summary_paths(manifest, out_dir):
+    files = {"summary_csv": os.path.join(out_dir, "summary.csv"),
+             "summary_json": os.path.join(out_dir, "summary.json")}
+    for cand in manifest.candidates:
+        files["candidate:" + cand.name] = os.path.join(out_dir, "candidates",
+                                                       slug(cand.name) + ".json")
+    return files
+
+
+def _write_candidate_files(manifest, result):
+    for cand in manifest.candidates:
+        summary = result.summaries[cand.name]
+        data = {"name": cand.name, "flags": result.candidate_flags[cand.name],
                 "summary": None if summary is None else summary.to_dict()}
-        path = os.path.join(out_dir, "candidates", slug(cand.name) + ".json")
+        path = os.path.join(result.out_dir, "candidates", slug(cand.name) + ".json")
         os.makedirs(os.path.dirname(path), exist_ok=True)
         with atomic_write(path) as f:
             json.dump(data, f, indent=2, default=str)
-    result = CampaignResult(manifest.title, out_dir, tuple(outcomes), summaries, cflags, {})
-    files = _write_summaries(result)
-    if report:
-        from .report.campaign_report import write_campaign_report
 
-        files["report_html"] = write_campaign_report(os.path.join(out_dir, "report.html"),
-                                                     manifest, result)
-    return dataclasses.replace(result, files=files)
+
+def _load_outputs_key(out_dir):
+    try:
+        with open(os.path.join(out_dir, _OUTPUTS_KEY), encoding="utf-8") as f:
+            data = json.load(f)
+    except (OSError, ValueError):
+        return {}
+    return data if isinstance(data, dict) else {}
+
+
+def _save_outputs_key(out_dir, data):
+    with atomic_write(os.path.join(out_dir, _OUTPUTS_KEY)) as f:
+        json.dump(data, f)
+
+
+def _outputs_key(manifest, result, tasks):
+    """A digest of everything the summaries and the report are made from.
+
+    Run results are a function of the run keys, and candidate summaries of the
+    run results and the manifest's settings, so this is cheap and complete
+    (only creation times and whether a run was computed or reused are not in it).
+    """
+    runs = [[t.candidate, t.label, t.key, o.status == "failed", o.reason]
+            for t, o in zip(tasks, result.outcomes)]
+    cands = [[c.name, c.notes, c.settings] for c in manifest.candidates]
+    blob = json.dumps({"title": manifest.title, "manifest": manifest.path,
+                       "settings": manifest.settings, "candidates": cands, "runs": runs,
+                       "out_dir": result.out_dir, "diffkit": _version_tag()},
+                      sort_keys=True, default=str)
+    return hashlib.sha256(blob.encode()).hexdigest()
 
 
 def _remove_stale_temporaries(out_dir):
@@ -493,9 +614,13 @@ def _write_summaries(result):
     json_path = os.path.join(result.out_dir, "summary.json")
     from .report.jsonout import to_jsonable
 
+    data = to_jsonable({"title": result.title, "ranking": rows, "campaign": result.to_dict()})
+    # the ranking indented for reading; the bulk (every run's results, MBs per run) compact,
+    # which the C encoder writes several times faster than an indented one
     with atomic_write(json_path) as f:
-        json.dump(to_jsonable({"title": result.title, "ranking": rows,
-                               "campaign": result.to_dict()}), f, indent=2, allow_nan=False)
+        f.write('{\n"title": ' + json.dumps(data["title"]) + ',\n"ranking": '
+                + json.dumps(data["ranking"], indent=2, allow_nan=False) + ',\n"campaign": '
+                + json.dumps(data["campaign"], allow_nan=False) + "\n}\n")
     return {"summary_csv": csv_path, "summary_json": json_path}
 
 

@@ -1,6 +1,6 @@
 """Campaign manifests: a TOML file listing candidates and their runs.
 
-Format (documented for users in docs/formats.md)::
+Format (documented for users in docs/campaigns.md)::
 
     title = "Fictional screening round"
 
@@ -111,12 +111,21 @@ def _unknown(path, where, data, allowed):
 
 def _settings(path, where, data):
     out = {}
+    k = ""
     try:
         for k in SETTING_KEYS:
             if k not in data:
                 continue
             v = data[k]
-            if k == "target_temperature":
+            if k == "mobile":
+                if isinstance(v, list) and v and all(isinstance(x, str) for x in v):
+                    v = [x.strip() for x in v]
+                elif not isinstance(v, str) or not v.strip():
+                    raise InputError(f"mobile must be an element symbol or a list of them, "
+                                     f"got {v!r}")
+                else:
+                    v = v.strip()
+            elif k == "target_temperature":
                 v = parse_temperature_K(v, "target_temperature")
             elif k == "start":
                 v = parse_time_ps(v, "start")
@@ -129,8 +138,10 @@ def _settings(path, where, data):
             elif k in ("haven_ratio", "charge"):
                 v = float(v)
             out[k] = v
-    except (UnitsError, InputError, TypeError, ValueError) as exc:
+    except (UnitsError, InputError) as exc:
         raise InputError(_where(path, f"{where}: {exc}")) from exc
+    except (TypeError, ValueError) as exc:
+        raise InputError(_where(path, f"{where}: {k} = {data[k]!r} is not valid ({exc})")) from exc
     return out
 
 
@@ -161,8 +172,10 @@ def read_manifest(path):
     out, names = [], set()
     for ci, c in enumerate(cands):
         where = f"candidate {ci + 1}"
-        _unknown(path, where, c, CANDIDATE_KEYS)
+        if not isinstance(c, dict):
+            raise InputError(_where(path, f"{where} is not a [[candidates]] table"))
         name = str(c.get("name", "")).strip()
+        _unknown(path, f"candidate {name!r}" if name else where, c, CANDIDATE_KEYS)
         if not name:
             raise InputError(_where(path, f"{where} has no name"))
         if name in names:
@@ -172,7 +185,10 @@ def read_manifest(path):
         merged = dict(settings)
         merged.update(_settings(path, where, c))
         runs = []
-        for ri, r in enumerate(c.get("runs", [])):
+        run_tables = c.get("runs", [])
+        if not isinstance(run_tables, list) or not all(isinstance(r, dict) for r in run_tables):
+            raise InputError(_where(path, f"{where}: runs must be [[candidates.runs]] tables"))
+        for ri, r in enumerate(run_tables):
             rwhere = f"{where}, run {ri + 1}"
             _unknown(path, rwhere, r, RUN_KEYS)
             files = r.get("files")
@@ -180,6 +196,9 @@ def read_manifest(path):
                 files = [files]
             if not files:
                 raise InputError(_where(path, f"{rwhere} lists no files"))
+            if not isinstance(files, list) or not all(isinstance(f, str) and f for f in files):
+                raise InputError(_where(path, f"{rwhere}: files must be a list of paths "
+                                              f"(strings), got {files!r}"))
             try:
                 T = parse_temperature_K(r["temperature"], "temperature") if "temperature" in r else None
                 dt = parse_time_ps(r["frame_interval"], "frame_interval") if "frame_interval" in r else None
