@@ -2,7 +2,7 @@
 
 Outside references used here:
 - Einstein relation for an uncorrelated lattice walk, D = Γ_total a² / (2d)
-  (Mehrer, Diffusion in Solids, Springer 2007, ch. 4; /work/shared/REFERENCES.md).
+  (Mehrer, Diffusion in Solids, Springer 2007, ch. 4; the project's shared REFERENCES.md).
 - Tracer correlation factors of the single-vacancy mechanism (Compaan & Haven,
   Trans. Faraday Soc. 52, 786 (1956); tabulated in Mehrer ch. 7; REFERENCES.md).
 - Boltzmann constant and unit factors from scipy.constants (CODATA).
