@@ -22,6 +22,7 @@ from .trust import (VERDICTS, CheckResult, RunAssessment, TrustThresholds, asses
 from .planning import (HE_2018_PRECISION, SYNTHETIC_PRECISION, CampaignPlan,
                        ExtrapolationPrecision, PlannedRun, PrecisionModel,
                        default_precision_model, extrapolation_precision, plan_campaign)
+from .campaign import CampaignResult, RunOutcome, campaign_status, run_campaign
 from .synth import (CampaignTruth, GroundTruth, SyntheticRun, arrhenius_campaign, hopping_run,
                     vacancy_kmc_run, write_run)
 from .conductivity import (CAUTIONS, CandidateSummary, Conductivity, ConductivityTiers,
@@ -53,6 +54,7 @@ __all__ = [
     "HE_2018_PRECISION", "SYNTHETIC_PRECISION", "CampaignPlan", "ExtrapolationPrecision",
     "PlannedRun", "PrecisionModel", "default_precision_model", "extrapolation_precision",
     "plan_campaign",
+    "CampaignResult", "RunOutcome", "campaign_status", "run_campaign",
     "CampaignTruth", "GroundTruth", "SyntheticRun", "arrhenius_campaign", "hopping_run",
     "vacancy_kmc_run", "write_run",
 ]
