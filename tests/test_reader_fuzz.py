@@ -269,7 +269,12 @@ def test_fixed_width_decoder_equals_float(rows, width, prefix):
     text = [prefix + b"".join(("%*s" % (width, num(i, f))).encode() for i, f in row) + b"\n"
             for row in rows]
     layout = FixedWidthLayout(text[0], start=len(prefix))
-    assert layout.ok
+    # by design the fast decoder takes at most 8 integer columns (leading spaces included);
+    # a wider first field is left to the general parser
+    int_columns = width - 9 - (1 if prefix else 0)
+    assert layout.ok == (int_columns <= 8)
+    if not layout.ok:
+        return
     block = np.frombuffer(b"".join(text), np.uint8).reshape(len(text), -1)
     got = layout.decode(block)
     want = np.array([[float(num(i, f)) for i, f in row] for row in rows])
