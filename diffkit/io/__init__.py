@@ -127,7 +127,16 @@ def open_text(path_or_file):
         if isinstance(f, io.TextIOBase):
             return f
         return io.TextIOWrapper(f, encoding="utf-8", errors="replace")
-    path = os.fspath(path_or_file)
+    return open_path(path_or_file, text=True)
+
+
+def open_path(path, *, text):
+    """Open a file path, decompressing gzip, bz2 or xz told by content.
+
+    A missing file, a folder or an unreadable file is an InputError naming it.
+    ``text=True`` gives a UTF-8 text stream, else a binary one; the caller closes it.
+    """
+    path = os.fspath(path)
     try:
         with open(path, "rb") as f:
             magic = f.read(6)
@@ -137,10 +146,12 @@ def open_text(path_or_file):
         raise InputError(f"{path}: is a folder, expected a trajectory file") from exc
     except OSError as exc:
         raise InputError(f"{path}: cannot be read ({exc.strerror})") from exc
+    kw = {"encoding": "utf-8", "errors": "replace"} if text else {}
+    mode = "rt" if text else "rb"
     for sig, opener in _COMPRESSED.items():
         if magic.startswith(sig):
-            return opener(path, "rt", encoding="utf-8", errors="replace")
-    return open(path, "rt", encoding="utf-8", errors="replace")
+            return opener(path, mode, **kw)
+    return open(path, mode, **kw)
 
 
 def _plain_name(path):

@@ -241,22 +241,9 @@ def _open_binary(path_or_file):
     """A binary (or the caller's text) stream of a path or an open file, and whether we own it."""
     if not isinstance(path_or_file, (str, os.PathLike)):
         return path_or_file, False
-    from . import _COMPRESSED
+    from . import open_path
 
-    path = os.fspath(path_or_file)
-    try:
-        with open(path, "rb") as f:
-            magic = f.read(6)
-    except FileNotFoundError as exc:
-        raise InputError(f"{path}: no such file") from exc
-    except IsADirectoryError as exc:
-        raise InputError(f"{path}: is a folder, expected a trajectory file") from exc
-    except OSError as exc:
-        raise InputError(f"{path}: cannot be read ({exc.strerror})") from exc
-    for sig, opener in _COMPRESSED.items():
-        if magic.startswith(sig):
-            return opener(path, "rb"), True
-    return open(path, "rb"), True
+    return open_path(path_or_file, text=False), True
 
 
 class opened:
