@@ -67,35 +67,45 @@ def direct_loop(x, max_lag):
     return out
 
 
-def best_of(fn, repeat):
-    best = np.inf
+_CPU = {}  # best process (CPU) time of the last best_of call per label
+
+
+def best_of(fn, repeat, label=None):
+    """Best wall time of ``repeat`` calls, s; the best CPU time goes to ``_CPU[label]``."""
+    best = cpu = np.inf
     for _ in range(repeat):
-        t0 = time.perf_counter()
+        c0, t0 = time.process_time(), time.perf_counter()
         fn()
         best = min(best, time.perf_counter() - t0)
+        cpu = min(cpu, time.process_time() - c0)
+    if label:
+        _CPU[label] = cpu
     return best
 
 
-def run_case(n_atoms, n_frames, *, sub_atoms=2, sub_frames=4000, repeat=1):
+def run_case(n_atoms, n_frames, *, sub_atoms=2, sub_frames=4000, repeat=2):
     print(f"\n== {n_atoms} atoms x {n_frames:,} frames "
           f"({n_atoms * n_frames * 3 * 8 / 2**20:,.0f} MB of float64 positions) ==")
     traj = random_walk_trajectory(n_atoms, n_frames)
     pos = traj.positions
-    t_pass = best_of(lambda: pos.sum(), 3)
+    t_pass = best_of(lambda: pos.sum(), 5, "pass")
     print(f"one numpy pass (positions.sum()):        {t_pass * 1e3:9.1f} ms")
 
     t_min = best_of(lambda: compute_msd(traj, "Li", reference="none", per_ion=False,
-                                        tensor=False), repeat)
+                                        tensor=False), repeat, "min")
     print(f"FFT, total + per-axis only:              {t_min:9.2f} s  = {t_min / t_pass:6.1f} x one pass"
           f"  ({t_min / (n_atoms * n_frames) * 1e9:.0f} ns per atom-frame)")
-    t_all = best_of(lambda: compute_msd(traj, "Li", reference="none"), repeat)
+    t_all = best_of(lambda: compute_msd(traj, "Li", reference="none"), repeat, "all")
     print(f"FFT, every output:                       {t_all:9.2f} s  = {t_all / t_pass:6.1f} x one pass"
           f"  ({t_all / (n_atoms * n_frames) * 1e9:.0f} ns per atom-frame)")
+    # on a shared machine wall times wander; CPU times of this process are steadier
+    print(f"same ratios in CPU time of this process: {_CPU['min'] / _CPU['pass']:6.1f} x "
+          f"(total + per-axis), {_CPU['all'] / _CPU['pass']:6.1f} x (every output)")
 
     # direct loop on a subset, extrapolated as O(n_frames^2) per atom
     sf = min(sub_frames, n_frames)
     sub = np.ascontiguousarray(pos[:sf, :sub_atoms])
-    t_sub = best_of(lambda: direct_loop(sub, sf // 2), 1)
+    t_sub = best_of(lambda: direct_loop(sub, sf // 2), 3)
     t_direct = t_sub * (n_frames / sf) ** 2 * (n_atoms / sub_atoms)
     print(f"direct loop, measured on {sub_atoms} atoms x {sf:,} frames: {t_sub:.2f} s "
           f"({t_sub / (sub_atoms * sf) * 1e6:.1f} us per atom-frame)")

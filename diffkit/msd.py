@@ -32,8 +32,12 @@ from .errors import InputError, UsageError
 
 __all__ = ["MSDCurve", "ChargeMSDCurve", "compute_msd", "compute_charge_msd", "thinned_lags"]
 
-#: Atoms transformed together; 4-16 was fastest in a feasibility run.
+#: Atoms read and transposed together (at least; short runs take more).
 _ATOMS_PER_BLOCK = 8
+#: Atoms transformed together; 4-16 was fastest in a feasibility run.
+_ATOMS_PER_FFT = 8
+#: Frames per tile of the cache-friendly transpose in :func:`_frames_last`.
+_TRANSPOSE_TILE = 2048
 #: At most this many (ion, time origin) samples per lag enter alpha2.
 _ALPHA2_SAMPLES = 2 ** 20
 #: Working float64 copies of one block per atom-frame-axis (for memory sizing).
@@ -273,6 +277,42 @@ def _s1(cum, lags, n):
     return head + (total - before)
 
 
+def _frames_last(pos, buffer=None, width=None):
+    """Copy (n, k, 3) positions into a (k, 3, width) array, frames last, tile by tile.
+
+    Columns ``n..width-1`` are zero (the FFT's padding). A plain
+    ``ascontiguousarray(pos.transpose(1, 2, 0))`` walks the output with a stride
+    of n and was ~3x slower than copying tiles that fit in cache.
+
+    Parameters
+    ----------
+    pos : (n, k, 3) float
+    buffer : (k, 3, width) float, optional
+        Reused when given (its padding columns must already be zero).
+    width : int, optional
+        Length of the last axis (>= n); n by default.
+
+    Returns
+    -------
+    (k, 3, width) float, C-contiguous
+    """
+    n, k, _ = pos.shape
+    width = n if width is None else width
+    if buffer is None or buffer.shape != (k, 3, width):
+        buffer = np.zeros((k, 3, width))
+    flat = buffer.reshape(k * 3, width)
+    for a in range(0, n, _TRANSPOSE_TILE):
+        b = min(n, a + _TRANSPOSE_TILE)
+        flat[:, a:b] = pos[a:b].reshape(b - a, k * 3).T
+    return buffer
+
+
+def _pair_sums(v):
+    """Sum adjacent pairs along the last axis: re^2 + im^2 (or re_a re_b + im_a im_b)
+    from a float view of complex spectra."""
+    return v[..., 0::2] + v[..., 1::2]
+
+
 def _msd_of_track(track, max_lag):
     """Per-axis time-origin-averaged MSD of one (n_frames, 3) track, by FFT.
 
@@ -341,8 +381,9 @@ def compute_msd(traj, species, *, reference=None, max_lag_fraction=0.5, per_ion=
     a2_lags = thinned_lags(max_lag, n_dense=8, n_log=24, n_linear=0)
     power_sum = np.zeros((3, nfft // 2 + 1))
     cross_spec = np.zeros((3, nfft // 2 + 1)) if tensor else None
-    sq_sum = np.zeros((3, 3, n)) if tensor else np.zeros((3, n))
-    summed = np.zeros((n, 3))
+    sq_diag = np.zeros((3, n))                     # sum over atoms of x_a(t)^2
+    sq_cross = np.zeros((3, n)) if tensor else None  # ... of x_a(t) x_b(t), pairs as above
+    summed = np.zeros((3, n))                 # transposed to (n, 3) at the end
     ion_msd = np.empty((n_ions, len(thin))) if per_ion else None
     r2_sum = np.zeros(len(a2_lags))
     r4_sum = np.zeros(len(a2_lags))
@@ -354,30 +395,40 @@ def compute_msd(traj, species, *, reference=None, max_lag_fraction=0.5, per_ion=
         ((n - a2_lags) * n_ions) // _ALPHA2_SAMPLES])
 
     done = 0
+    padded = None
     bs = _block_size(traj, memory_budget_MB)
     for _, pos in traj.iter_atom_blocks(idx, block_size=bs):
         k = pos.shape[1]
+        padded = _frames_last(pos, padded, nfft)                  # (k, 3, nfft), zero tail
+        x = padded[..., :n]
         if reference != "none":
-            pos = pos - ref_track[:, None, :]
-        summed += pos.sum(axis=1) - pos[0].sum(axis=0)
-        x = np.ascontiguousarray(pos.transpose(1, 2, 0))          # (k, 3, n)
+            x -= ref_track.T                                      # drift reference, (3, n)
+        block_sum = x.sum(axis=0)                                 # (3, n)
+        summed += block_sum - block_sum[:, :1]
         x -= x.mean(axis=-1, keepdims=True)
-        f = _fft.rfft(x, n=nfft, axis=-1)                         # (k, 3, nf)
-        power = f.real * f.real
-        power += f.imag * f.imag
-        power_sum += power.sum(axis=0)                            # atoms summed before the inverse FFT
+        sq_diag += np.einsum("kat,kat->at", x, x)
         if tensor:
             for j, (a, b) in enumerate(pairs):
-                cross_spec[j] += np.einsum("kf,kf->f", f[:, a].real, f[:, b].real)
-                cross_spec[j] += np.einsum("kf,kf->f", f[:, a].imag, f[:, b].imag)
-            sq_sum += np.einsum("kat,kbt->abt", x, x)
-        else:
-            sq_sum += np.einsum("kat,kat->at", x, x)
-        del f
+                sq_cross[j] += np.einsum("kt,kt->t", x[:, a], x[:, b])
+        for lo in range(0, k, _ATOMS_PER_FFT):
+            xs = x[lo:lo + _ATOMS_PER_FFT]
+            ks = xs.shape[0]
+            f = _fft.rfft(padded[lo:lo + ks], axis=-1)            # (ks, 3, nf) complex
+            fv = f.view(np.float64)                               # re, im interleaved
+            if tensor:
+                for j, (a, b) in enumerate(pairs):
+                    cross_spec[j] += _pair_sums(np.einsum("kf,kf->f", fv[:, a], fv[:, b]))
+            np.square(fv, out=fv)
+            power_sum += _pair_sums(fv.sum(axis=0))               # atoms summed before the inverse FFT
+            if per_ion:
+                power_ion = _pair_sums(fv.sum(axis=1))            # (ks, nf)
+                del f, fv
+                s2 = _fft.irfft(power_ion, n=nfft, axis=-1)[:, thin]   # (ks, n_thin)
+                s1 = _s1(np.cumsum(np.einsum("kat,kat->kt", xs, xs), axis=-1), thin, n)
+                ion_msd[done + lo:done + lo + ks] = np.maximum((s1 - 2.0 * s2) / (n - thin), 0.0)
+            else:
+                del f, fv
         if per_ion:
-            s2 = _fft.irfft(power.sum(axis=1), n=nfft, axis=-1)[:, thin]   # (k, n_thin)
-            s1 = _s1(np.cumsum(np.einsum("kat,kat->kt", x, x), axis=-1), thin, n)
-            ion_msd[done:done + k] = np.maximum((s1 - 2.0 * s2) / (n - thin), 0.0)
             for j, (m, st) in enumerate(zip(a2_lags, strides)):
                 d = x[:, :, m::st] - x[:, :, :n - m:st]
                 r2 = np.einsum("kat,kat->kt", d, d)
@@ -385,14 +436,10 @@ def compute_msd(traj, species, *, reference=None, max_lag_fraction=0.5, per_ion=
                 r4_sum[j] += np.einsum("kt,kt->", r2, r2)
                 cnt[j] += r2.size
         done += k
-        del x, power, pos
+        del x, pos, block_sum
 
     s2_all = _fft.irfft(power_sum, n=nfft, axis=-1)[:, :max_lag + 1]
-    if tensor:
-        diag_sq = np.stack([sq_sum[a, a] for a in range(3)])
-    else:
-        diag_sq = sq_sum
-    s1_all = _s1(np.cumsum(diag_sq, axis=-1), lags, n)
+    s1_all = _s1(np.cumsum(sq_diag, axis=-1), lags, n)
     norm = n_ions * (n - lags)
     msd_axes = ((s1_all - 2.0 * s2_all) / norm).T                 # (L, 3)
     msd_axes = np.maximum(msd_axes, 0.0)          # round-off only: an MSD is never negative
@@ -403,9 +450,10 @@ def compute_msd(traj, species, *, reference=None, max_lag_fraction=0.5, per_ion=
         for a in range(3):
             msd_tensor[:, a, a] = msd_axes[:, a]
         for j, (a, b) in enumerate(pairs):
-            s1_ab = _s1(np.cumsum(sq_sum[a, b]), lags, n)
+            s1_ab = _s1(np.cumsum(sq_cross[j]), lags, n)
             v = (s1_ab - 2.0 * cross[j]) / norm
             msd_tensor[:, a, b] = msd_tensor[:, b, a] = v
+    summed = summed.T.copy()
     coll_axes = _msd_of_track(summed, max_lag) / n_ions
     alpha2 = msd4 = None
     if per_ion and len(a2_lags):
