@@ -31,7 +31,10 @@ import os
 from dataclasses import dataclass, field
 
 from ..errors import InputError, UnitsError
+from ..trajectory import REFERENCES
 from ..units import parse_temperature_K, parse_time_ps
+from . import FORMATS
+from .lammpsdump import UNIT_STYLES
 
 try:
     import tomllib
@@ -109,6 +112,16 @@ def _unknown(path, where, data, allowed):
                                       f"known keys: {', '.join(allowed)}"))
 
 
+def _choice(key, value, allowed):
+    """A lower-case string from ``allowed`` (any non-empty string when None)."""
+    if not isinstance(value, str) or not value.strip():
+        raise InputError(f"{key} must be a word, got {value!r}")
+    v = value.strip().lower()
+    if allowed is not None and v not in allowed:
+        raise InputError(f"{key} = {value!r} is not one of {', '.join(allowed)}")
+    return v
+
+
 def _settings(path, where, data):
     out = {}
     k = ""
@@ -137,6 +150,10 @@ def _settings(path, where, data):
                 v = tuple(float(x) for x in v)
             elif k in ("haven_ratio", "charge"):
                 v = float(v)
+            elif k == "reference":
+                v = _choice("reference", v, REFERENCES)
+            elif k == "method":
+                v = _choice("method", v, None)
             out[k] = v
     except (UnitsError, InputError) as exc:
         raise InputError(_where(path, f"{where}: {exc}")) from exc
@@ -206,6 +223,12 @@ def read_manifest(path):
                 start = parse_time_ps(r["start"], "start") if "start" in r else merged.get("start", 0.0)
             except UnitsError as exc:
                 raise InputError(_where(path, f"{rwhere}: {exc}")) from exc
+            try:
+                fmt = _choice("format", r["format"], tuple(FORMATS)) if "format" in r else None
+                units = (_choice("lammps_units", r["lammps_units"], tuple(UNIT_STYLES))
+                         if "lammps_units" in r else None)
+            except InputError as exc:
+                raise InputError(_where(path, f"{rwhere}: {exc}")) from exc
             tmap = r.get("type_map")
             if tmap is not None:
                 try:
@@ -215,7 +238,7 @@ def read_manifest(path):
                                                   "to element symbols")) from exc
             runs.append(RunSpec(files=tuple(os.path.normpath(os.path.join(base, f)) for f in files),
                                 temperature_K=T, frame_interval_ps=dt, md_timestep_ps=ts,
-                                format=r.get("format"), lammps_units=r.get("lammps_units"),
+                                format=fmt, lammps_units=units,
                                 type_map=tmap, start_ps=start, override=bool(r.get("override", False)),
                                 label=str(r.get("label", ""))))
         if not runs:
