@@ -3,27 +3,39 @@
 Two methods, both streaming over blocks of atoms (:meth:`Trajectory.iter_atom_blocks`):
 
 ``method="displacement"`` (default, needs no sites)
-    Each ion's path is smoothed with a short running median (edge preserving,
-    so a step stays a step) and followed frame by frame against a *resting
-    place* (the running mean of the smoothed positions of the current stay).
-    A hop is counted when the smoothed position settles — for ``settle_frames``
-    consecutive frames, close to each other — more than ``threshold_A`` away
-    from the resting place. The hop frame is the first settled frame.
+    1. *Tracker.* Each ion's path is smoothed with a short running median
+       (edge preserving, so a step stays a step) and followed frame by frame
+       against a *resting place* (the running mean of the smoothed positions of
+       the current stay). A hop is counted when the smoothed position settles —
+       for ``settle_frames`` consecutive frames, close to each other — more
+       than ``threshold_A`` away from the resting place.
+    2. *One-frame stays* (automatic settings, when the tracker needed
+       smoothing). The tracker's stays are checked on the raw positions: a stay
+       of L frames stands when its raw mean lies farther than R/√L from the
+       places before and after it, else it joins the one it is close to; each
+       hop is re-timed to the least-squares change point between the two
+       places; and a raw frame farther than R (``excursion_radius_A``) from the
+       place it is assigned to starts a short stay of its own — kept, even one
+       frame long, when it lies more than ``threshold_A`` from the places
+       before and after it.
 
 ``method="sites"``
     Sites are the peaks of the time-averaged density of the mobile species on
     a periodic grid (Gaussian-smoothed histogram of wrapped positions, peaks
-    closer than the threshold merged, centres refined by centroids). Each
-    smoothed position is assigned to the nearest site only inside its *core*
-    (radius ``d_nn − threshold_A``, so entering a neighbour's core needs a move
-    of at least ``threshold_A``); outside every core the previous site is kept
-    (hysteresis), so rattling at a boundary is not a hop. Visits shorter than
-    ``settle_frames`` are dropped; every remaining change of site is a hop.
-    Reports site occupancies and site-to-site hop counts.
+    closer than the threshold merged, centres refined by centroids). With
+    hysteresis: a position moves the ion to a site only inside that site's
+    *core*; outside every core the previous site is kept, so rattling at a
+    boundary is not a hop. With automatic settings every raw frame is assigned
+    and the core radius is the largest (at most min(d_nn − θ, 0.45 d_nn)) for
+    which vibration is expected to put an ion inside a neighbour's core rarely
+    enough (non-central χ² with 3 degrees of freedom); a visit of one frame
+    counts. Each hop is timed at the first of the frames just before the entry
+    that were already nearer the new site than the old one. Reports site
+    occupancies and site-to-site hop counts.
 
 Automatic settings (each reported in the result):
 
-* ``threshold_A`` = ``threshold_fraction`` (0.6) × the typical shortest
+* ``threshold_A`` θ = ``threshold_fraction`` (0.6) × the typical shortest
   distance between distinct resting places seen. A coarse scouting pass
   (paths block-medianed over ~0.1 ps, followed with a provisional threshold of
   4 × the vibration rms) finds stays; the distances between consecutive stays
@@ -31,13 +43,18 @@ Automatic settings (each reported in the result):
   them, the nearest distances between different ions' resting places join
   in); the typical shortest is the median of the candidates ≤ 1.25 × their
   10th percentile.
-* The running-median width and ``settle_frames`` are the finest pair, in the
-  order (1, 1), (3, 2), (5, 2), (7, 2), ..., for which vibration alone is
-  expected to cause fewer than 0.1 false hops in the whole run: n_ion_frames ×
-  P(|g| > reach / s_w) (× 2 with ``settle_frames=1``), g a 3-vector of unit
-  Gaussians and s_w the noise of the smoothed path measured inside long stays.
-  The time resolution is reported: stays shorter than it are merged (A→B→C
-  seen as one hop A→C).
+* The tracker's running-median width and ``settle_frames`` are the finest
+  pair, in the order (1, 1), (3, 2), (5, 2), (7, 2), ..., for which vibration
+  alone is expected to cause fewer than 0.1 false hops in the whole run:
+  n_ion_frames × P(|g| > reach / s_w) (× 2 with ``settle_frames=1``), g a
+  3-vector of unit Gaussians and s_w the noise of the smoothed path measured
+  inside long stays.
+* The one-frame rules accept an expected ``false_hop_allowance`` hops from
+  vibration over the run: 0.02, or 1 % of the hops the scouting pass saw
+  (an undercount of the true hops) where that is more. R solves
+  2 · n_ion_frames · P(|g| > R/σ) = allowance; the site core radius solves
+  the same with the non-central χ² probability of landing in a neighbour's
+  core. The time resolution is then one frame (``time_resolution_ps``).
 
 The effective number of hops is N_eff = Σ_i |R_i(end) − R_i(start)|² / a², with
 R the resting place (or site) of ion i and a the mean jump distance (He, Zhu,
@@ -76,8 +93,19 @@ _SCOUT_BLOCK_MIN = 4
 #: Running-median windows tried, finest first.
 _WINDOWS = (1, 3, 5, 7, 9, 13, 17, 25, 37, 51, 75, 101)
 #: Expected hops caused by vibration alone over the whole run that the automatic
-#: resolution accepts.
+#: resolution of the smoothed-path tracker accepts.
 _FALSE_HOP_BUDGET = 0.1
+#: Expected false hops the one-frame rules may add in a run with few hops.
+_FALSE_HOP_FLOOR = 0.02
+#: Share of the hops seen while scouting that the one-frame rules may add as
+#: expected false hops (a run where scouting saw few hops keeps _FALSE_HOP_FLOOR).
+_FALSE_HOP_SHARE = 0.01
+#: Sites: raw frames are assigned without smoothing when the core radius the
+#: allowance permits is at least this many vibration rms (a frame of a stay then
+#: lands in the core with probability ≥ 0.48).
+_MIN_CORE_SIGMAS = 1.5
+#: Sites: a hop moves back over at most this many frames already nearer the new site.
+_WALK_BACK_FRAMES = 8
 #: The resting place is the mean of at most this many latest frames of the stay.
 _ANCHOR_MEMORY = 200
 #: Ions and frames used to measure the smoothed-path noise.
@@ -188,7 +216,8 @@ class HopSummary:
     settle_frames : int
         Consecutive settled frames needed at a new place.
     time_resolution_ps : float, ps
-        Stays shorter than this are merged into one hop.
+        Stays shorter than this are merged into one hop (one frame with the
+        automatic one-frame rules; stays between saved frames are never seen).
     vibration_rms_A : float, Å
         Thermal vibration about the resting places, rms per axis (measured).
     max_frame_step_A : float, Å
@@ -197,6 +226,16 @@ class HopSummary:
         Site analysis (``method="sites"`` only).
     message : str
         Plain-words summary and any caveat.
+    excursion_radius_A : float, Å
+        Displacement method, automatic settings with smoothing: a raw frame
+        farther than this from the resting places around it is a candidate
+        short stay (kept, even one frame long, when it also lies more than
+        ``threshold_A`` from the places before and after). NaN where not used.
+    false_hop_allowance : float
+        Hops that vibration alone is expected to add over the whole run under
+        the automatic one-frame rules: 0.02, or 1 % of the hops seen while
+        scouting where that is more (the sites' core radius and
+        ``excursion_radius_A`` are derived from it).
     """
 
     species: str
@@ -228,6 +267,8 @@ class HopSummary:
     max_frame_step_A: float
     sites: SiteCensus | None = None
     message: str = ""
+    excursion_radius_A: float = float("nan")
+    false_hop_allowance: float = float("nan")
 
     def to_dict(self):
         """Plain JSON-ready dict (arrays become lists, NaN becomes None)."""
@@ -470,6 +511,205 @@ def _hop_rows(first, ions):
     return first[ions] + rank
 
 
+# =========================================================================== one-frame stays
+def _excursion_radius(n_obs, noise_sd, allowance):
+    """Distance from every resting place beyond which one raw frame is taken as elsewhere.
+
+    Vibration alone puts a frame farther than R from its resting place with
+    probability P(|g| > R / σ) (g a 3-vector of unit Gaussians); each such frame
+    taken as a stay makes two hops (out and back), so R solves
+    2 · n_obs · P(|g| > R / σ) = ``allowance``.
+
+    Parameters
+    ----------
+    n_obs : int
+        Ion-frames examined.
+    noise_sd : float, Å
+        Per-axis vibration rms of the raw positions.
+    allowance : float
+        Expected false hops accepted over the run.
+
+    Returns
+    -------
+    float, Å
+    """
+    if not noise_sd > 0:
+        return 0.0
+    p = min(0.5, allowance / (2.0 * max(n_obs, 1)))
+    return float(_stats.chi.isf(p, 3)) * float(noise_sd)
+
+
+def _refine_stays(pos, frames, ions, centres, first, lengths, sid, thr, reach, delta):
+    """Re-time the tracker's hops on the raw positions and recover the stays it merged.
+
+    Three steps, all ions of a block at once:
+
+    1. **Stays that stand out.** A stay of L frames is kept when the mean of
+       its raw positions lies farther than ``reach``/√L from the places before
+       and after it (the one-frame rule below, applied to a mean); otherwise it
+       joins the neighbour it is close to. Consecutive stays whose centres are within
+       ``thr`` of each other are then one place (the tracker can leave a place
+       for a stay too short to hold its resting place and come back).
+    2. **Re-timing.** Each remaining hop is moved, within ``delta`` frames (and
+       never past half-way to the ion's neighbouring hops), to the split that
+       best fits the raw positions: frames before it nearer the old place,
+       frames from it on nearer the new one (least squares, the most likely
+       change point for Gaussian vibration). Frames farther than ``reach`` from
+       both places do not vote.
+    3. **Short stays.** A raw frame farther than ``reach`` from the place it
+       is assigned to is *elsewhere*. Consecutive elsewhere frames less than
+       ``thr`` apart form a candidate stay; it is kept, whatever its length (one
+       frame included), when its mean lies more than ``thr`` from the places the
+       ion held just before and just after it (so a frame caught half-way along
+       a jump is not a place).
+
+    Parameters
+    ----------
+    pos : (n_frames, k, 3) float, Å
+        Raw positions.
+    frames, ions : (n_hops,) int
+        Tracker hops, sorted by ion then time.
+    centres : (n_stays, 3) float, Å
+        Stay centres (:func:`_stay_centres`).
+    first : (k,) int
+        Row of each ion's first stay.
+    lengths : (n_stays,) int
+        Frames per stay.
+    sid : (n_frames, k) int
+        Stay row of every frame.
+    thr : float, Å
+        Hop threshold θ.
+    reach : float, Å
+        Elsewhere radius R (:func:`_excursion_radius`).
+    delta : int
+        Largest shift of a hop, frames.
+
+    Returns
+    -------
+    label : (k, n_frames) int
+        Place of every frame: a row of ``places``.
+    places : (n_places, 3) float, Å
+        Centres of the tracker's places followed by the recovered short stays.
+    """
+    n, k, _ = pos.shape
+    x = np.ascontiguousarray(pos.transpose(1, 0, 2))                 # (k, n, 3)
+    reach2, thr2 = reach * reach, thr * thr
+
+    # ---- 1. keep the tracker's stays that stand out from vibration; join the rest
+    if len(frames):
+        rows = _hop_rows(first, ions)
+        n_st = len(centres)
+        S = sid.T.ravel()
+        xf = x.reshape(-1, 3)
+        cnt = np.maximum(np.bincount(S, minlength=n_st), 1)
+        raw = np.stack([np.bincount(S, weights=xf[:, a], minlength=n_st) for a in range(3)],
+                       axis=1) / cnt[:, None]
+        # a stay of L frames stands out when its raw mean lies farther than R/√L
+        # (the excursion radius of one frame, scaled to a mean) from both neighbours
+        lim2 = reach2 / cnt
+        has_before = np.ones(n_st, dtype=bool)
+        has_before[first] = False
+        has_after = np.ones(n_st, dtype=bool)
+        has_after[first + np.bincount(ions, minlength=k)] = False
+        close = []
+        for has, shift in ((has_before, -1), (has_after, 1)):
+            r = np.flatnonzero(has)
+            d = raw[r] - centres[r + shift]
+            c = np.zeros(n_st, dtype=bool)
+            c[r[np.einsum("si,si->s", d, d) <= lim2[r]]] = True
+            close.append(c)
+        # a stay that does not stand out joins the neighbour it is close to
+        drop = close[0][rows + 1] | (close[1][rows] & ~close[0][rows])
+        frames, ions, rows = frames[~drop], ions[~drop], rows[~drop]
+        wts = cnt.astype(float)
+        while True:          # then join consecutive stays closer than θ (one place)
+            start_g = np.zeros(n_st, dtype=np.int64)
+            start_g[first] = 1
+            start_g[rows + 1] = 1
+            group = np.cumsum(start_g) - 1
+            n_g = int(group[-1]) + 1
+            wsum = np.bincount(group, weights=wts, minlength=n_g)
+            places = np.stack([np.bincount(group, weights=wts * centres[:, a], minlength=n_g)
+                               for a in range(3)], axis=1) / wsum[:, None]
+            d = places[group[rows + 1]] - places[group[rows]]
+            moved = np.einsum("hi,hi->h", d, d) > thr2
+            if moved.all():
+                break
+            frames, ions, rows = frames[moved], ions[moved], rows[moved]
+        first = group[first]
+    else:
+        places = centres
+
+    # ---- 2. re-time: the least-squares change point between the two places
+    h = len(frames)
+    if h:
+        rows = _hop_rows(first, ions)
+        same_prev = np.r_[False, ions[1:] == ions[:-1]]
+        same_next = np.r_[ions[:-1] == ions[1:], False]
+        prev_f = np.r_[0, frames[:-1]]
+        next_f = np.r_[frames[1:], 0]
+        lo = np.where(same_prev, (prev_f + frames) // 2 + 1, 1)
+        hi = np.where(same_next, (frames + next_f) // 2, n - 1)
+        lo = np.maximum(lo, frames - delta)
+        hi = np.minimum(hi, frames + delta)
+        T = frames[:, None] + np.arange(-delta, delta + 1)[None, :]  # (h, 2δ+1)
+        ok = (T >= lo[:, None]) & (T <= hi[:, None])
+        Tc = np.clip(T, 0, n - 1)
+        xt = x[ions[:, None], Tc]                                     # (h, 2δ+1, 3)
+        d_new = xt - places[rows + 1][:, None, :]
+        d_old = xt - places[rows][:, None, :]
+        r_new = np.einsum("hji,hji->hj", d_new, d_new)
+        r_old = np.einsum("hji,hji->hj", d_old, d_old)
+        e = r_new - r_old
+        e[~ok | ((r_new > reach2) & (r_old > reach2))] = 0.0
+        cost = np.cumsum(e[:, ::-1], axis=1)[:, ::-1]                 # Σ_{t ≥ τ} e_t
+        cost[~ok] = np.inf
+        frames = T[np.arange(h), np.argmin(cost, axis=1)]
+    mark = np.zeros((k, n), dtype=np.int64)
+    np.add.at(mark, (ions, frames), 1)
+    label = np.cumsum(mark, axis=1)
+    label += first[:, None]
+    del mark
+
+    # ---- 3. short stays among the frames away from their place
+    d = x - places[label]
+    away = np.einsum("kti,kti->kt", d, d) > reach2
+    del d
+    if away.any():
+        step = x[:, 1:] - x[:, :-1]
+        cont = away[:, 1:] & away[:, :-1] & (np.einsum("kti,kti->kt", step, step) <= thr2)
+        del step
+        start = away.copy()
+        start[:, 1:] &= ~cont
+        end = away.copy()
+        end[:, :-1] &= ~cont
+        seg = np.cumsum(start.ravel()) - 1                            # segment of each frame
+        fa = np.flatnonzero(away.ravel())
+        g = seg[fa]
+        n_seg = int(start.sum())
+        cnt = np.bincount(g, minlength=n_seg)
+        xf = x.reshape(-1, 3)
+        cen = np.stack([np.bincount(g, weights=xf[fa, a], minlength=n_seg) for a in range(3)],
+                       axis=1) / cnt[:, None]
+        s_flat = np.flatnonzero(start.ravel())
+        e_flat = np.flatnonzero(end.ravel())
+        lf = label.reshape(-1)
+        has_before = (s_flat % n) > 0
+        has_after = (e_flat % n) < n - 1
+        keep = has_before | has_after
+        for has, at in ((has_before, s_flat - 1), (has_after, e_flat + 1)):
+            dd = cen - places[lf[np.clip(at, 0, len(lf) - 1)]]
+            keep &= (np.einsum("si,si->s", dd, dd) > thr2) | ~has
+        if keep.any():
+            new_row = np.full(n_seg, -1, dtype=np.int64)
+            new_row[keep] = len(places) + np.arange(int(keep.sum()))
+            places = np.concatenate([places, cen[keep]])
+            take = new_row[g] >= 0
+            lf[fa[take]] = new_row[g[take]]
+            label = lf.reshape(k, n)
+    return label, places
+
+
 # =========================================================================== scouting
 @dataclass
 class _Scout:
@@ -600,8 +840,10 @@ def _find_sites(points_frac, cell, sigma, merge_A):
 
     Returns
     -------
-    (n_sites, 3) float
+    frac : (n_sites, 3) float
         Fractional site centres in [0, 1).
+    weight : (n_sites,) float
+        Share of the points in the box around each site (sums to ≤ 1).
     """
     heights = cell_heights(cell)
     h = float(np.clip(sigma / 2.0, 0.05, 0.25))
@@ -620,7 +862,7 @@ def _find_sites(points_frac, cell, sigma, merge_A):
     peak &= dens > 1e-3 * dens.max()
     idx = np.argwhere(peak)
     if len(idx) == 0:
-        return np.zeros((0, 3))
+        return np.zeros((0, 3)), np.zeros(0)
     strength = dens[tuple(idx.T)]
     # centroid of the counts in a periodic box of ±2.5 σ (at most ±0.4 × the merge
     # distance) around each peak, twice (the second box centred on the first centroid)
@@ -637,9 +879,11 @@ def _find_sites(points_frac, cell, sigma, merge_A):
         mean = (wts[..., None] * ((cells_ + 0.5) / nb)).sum(axis=1)
         mean /= np.maximum(tot, 1e-300)[:, None]
         frac = np.where((tot > 0)[:, None], mean, frac)
+    weight = tot / max(len(points_frac), 1)
     # merge peaks closer than merge_A, strongest first
     order = np.argsort(-strength)
     frac = frac[order] % 1.0
+    weight = weight[order]
     shifts = np.array([(i, j, k) for i in (-1, 0, 1) for j in (-1, 0, 1) for k in (-1, 0, 1)])
     imgs = (frac[None, :, :] + shifts[:, None, :]).reshape(-1, 3) @ cell
     neighbours = _spatial.cKDTree(imgs).query_ball_point(frac @ cell, r=merge_A)
@@ -651,7 +895,7 @@ def _find_sites(points_frac, cell, sigma, merge_A):
         keep.append(j)
         nb_ = np.asarray(neighbours[j], dtype=np.int64) % len(frac)
         gone[nb_[nb_ > j]] = True
-    return frac[keep]
+    return frac[keep], weight[keep]
 
 
 class _SiteLocator:
@@ -773,7 +1017,20 @@ def _site_changes(label, decisive, settle):
 
 
 def _build_sites(stream, cells, sigma, thr, fallback_sep):
-    """Sites from the density of the mobile species: (locator, d_nn, core radius)."""
+    """Sites from the density of the mobile species.
+
+    Returns
+    -------
+    locator : _SiteLocator
+        With the largest core radius, r_max = min(d_nn − θ, 0.45 d_nn).
+    d_nn : float, Å
+        Typical nearest-site distance.
+    r_max : float, Å
+    neighbour_A : (n_sites, m) float, Å
+        Distances from each site to its m ≤ 12 nearest other sites (periodic images).
+    weight : (n_sites,) float
+        Share of the density at each site.
+    """
     mean_cell = cells.mean(axis=0)
     const_cell = bool(np.allclose(cells, cells[:1]))
     inv_cells = None if const_cell else np.linalg.inv(cells)
@@ -786,23 +1043,78 @@ def _build_sites(stream, cells, sigma, thr, fallback_sep):
             pts.append(p.reshape(-1, 3) @ inv_mean)
         else:
             pts.append(np.einsum("tka,tab->tkb", p, inv_cells[::stride]).reshape(-1, 3))
-    frac_sites = _find_sites(np.concatenate(pts), mean_cell, sigma, merge_A=thr)
+    frac_sites, weight = _find_sites(np.concatenate(pts), mean_cell, sigma, merge_A=thr)
     if len(frac_sites) == 0:
         raise InputError("count_hops(method='sites'): no sites found in the density of the "
                          "species; use method='displacement'")
     cart = frac_sites @ mean_cell
+    shifts = np.array([(i, j, k) for i in (-1, 0, 1) for j in (-1, 0, 1) for k in (-1, 0, 1)])
+    imgs = (frac_sites[None, :, :] + shifts[:, None, :]).reshape(-1, 3) @ mean_cell
+    d, _ = _spatial.cKDTree(imgs).query(cart, k=min(13, len(imgs)))
+    neighbour = np.asarray(d, float).reshape(len(cart), -1)[:, 1:]
     if len(frac_sites) > 1:
-        shifts = np.array([(i, j, k) for i in (-1, 0, 1) for j in (-1, 0, 1) for k in (-1, 0, 1)])
-        imgs = (frac_sites[None, :, :] + shifts[:, None, :]).reshape(-1, 3) @ mean_cell
-        d, _ = _spatial.cKDTree(imgs).query(cart, k=2)
-        d_nn = float(_typical_shortest(d[:, 1]))
+        # from the busier half of the sites: centres of rarely visited ones are rough
+        busy = weight >= np.median(weight)
+        d_nn = float(_typical_shortest(neighbour[busy, 0]))
     else:
         d_nn = float(fallback_sep)
     core = min(d_nn - thr, 0.45 * d_nn)
     if not core > 0:
         core = 0.4 * d_nn
     locator = _SiteLocator(frac_sites, mean_cell, core)
-    return locator, d_nn, core
+    return locator, d_nn, core, neighbour, weight
+
+
+def _core_radius(neighbour_A, weight, noise_sd, n_obs, allowance, r_max):
+    """Largest core radius ≤ ``r_max`` whose false entries stay within ``allowance``.
+
+    An ion vibrating about site i (per-axis rms σ) lands inside the core
+    (radius r) of a neighbour j at distance d_ij with probability
+    P(|σg − d_ij| < r) = F(r²/σ²; 3, d_ij²/σ²), F the non-central χ² CDF with 3
+    degrees of freedom; each such entry makes two hops (there and back). With
+    w_i the share of the density at site i, the expected false hops are
+    2 · n_obs · Σ_i w_i Σ_j F(...).
+
+    Parameters
+    ----------
+    neighbour_A : (n_sites, m) float, Å
+    weight : (n_sites,) float
+    noise_sd : float, Å
+    n_obs : int
+        Ion-frames assigned.
+    allowance : float
+        Expected false hops accepted over the run.
+    r_max : float, Å
+
+    Returns
+    -------
+    radius : float, Å
+    expected : float
+        Expected false hops at that radius.
+    """
+    if not noise_sd > 0 or neighbour_A.size == 0:
+        return float(r_max), 0.0
+    lam = np.round(neighbour_A / noise_sd, 3)
+    uniq, inv = np.unique(lam, return_inverse=True)
+    inv = inv.reshape(lam.shape)
+    w = np.asarray(weight, float)
+    w = w / w.sum() if w.sum() > 0 else np.full(len(w), 1.0 / len(w))
+
+    def expected(r):
+        p = _stats.ncx2.cdf((r / noise_sd) ** 2, 3, uniq ** 2)
+        return 2.0 * n_obs * float(w @ p[inv].sum(axis=1))
+
+    e_max = expected(r_max)
+    if e_max <= allowance:
+        return float(r_max), e_max
+    lo, hi = 0.0, float(r_max)
+    for _ in range(40):
+        mid = 0.5 * (lo + hi)
+        if expected(mid) <= allowance:
+            lo = mid
+        else:
+            hi = mid
+    return lo, expected(lo)
 
 
 # =========================================================================== streaming
@@ -858,6 +1170,8 @@ def count_hops(traj, species, *, method="displacement", reference=None, threshol
         Running-median width (odd; 1 = none). Default: automatic.
     settle_frames : int, optional
         Consecutive frames needed at a new place. Default: automatic (1 or 2).
+        Setting either of these two turns the one-frame rules off: stays
+        shorter than the resolution they give are merged (A→B→C seen as A→C).
     memory_budget_MB : float
         Memory one block of atoms may use.
 
@@ -954,25 +1268,47 @@ def count_hops(traj, species, *, method="displacement", reference=None, threshol
                  "at least 0.5 Å")
     thr = min(thr, 0.49 * h_min)
 
-    # ---- sites: peaks of the density
-    locator = None
-    d_nn = core = float("nan")
-    reach = thr
-    if method == "sites":
-        sep = d_min if (threshold_A is None and math.isfinite(d_min)) else thr / frac_
-        locator, d_nn, core = _build_sites(stream, cells, sigma_vib, thr, sep)
-        reach = d_nn - core
-
-    # ---- time resolution: the finest that vibration will not fool
-    w, settle = _choose_resolution(ladder, reach, n * n_ions, n, w_user, s_user)
+    # ---- how many false hops the one-frame rules may add (0.02, or 1 % of the hops seen)
+    auto = w_user is None and s_user is None
+    allowance = max(_FALSE_HOP_FLOOR, _FALSE_HOP_SHARE * scout.hops)
+    n_obs = n * n_ions
     gap = n / (1.0 + scout.hops / max(n_ions, 1))      # frames between scouted hops
     lookahead = int(np.clip(gap, 8, 256))
+    excursion = float("nan")
+    sep = d_min if (threshold_A is None and math.isfinite(d_min)) else thr / frac_
+
+    if method == "displacement":
+        # the tracker at the finest resolution vibration will not fool (whole-run budget
+        # 0.1), then one-frame stays recovered on the raw positions
+        w, settle = _choose_resolution(ladder, thr, n_obs, n, w_user, s_user)
+        excursion = _excursion_radius(n_obs, sigma_vib, allowance)
+        # worth it only where one frame at the nearest other resting place can be
+        # told from vibration (R below the typical distance between resting places)
+        refine = auto and (w, settle) != (1, 1) and 0 < excursion < sep
+        if not refine:
+            excursion = float("nan")
+        out = _census_displacement(stream, thr, w, settle, lookahead,
+                                   reach=excursion if refine else None,
+                                   delta=w // 2 + settle + 1)
+        res_frames = 1 if refine else max(settle, (w + 1) // 2)
+    else:
+        # sites: peaks of the density; the core radius from the allowance, every raw
+        # frame assigned; smoothing only where vibration is too wide for that
+        locator, d_nn, r_max, neighbour, weight = _build_sites(stream, cells, sigma_vib, thr,
+                                                               sep)
+        core = r_max
+        w = settle = 0
+        if auto:
+            r_c, _ = _core_radius(neighbour, weight, sigma_vib, n_obs, allowance, r_max)
+            if r_c >= _MIN_CORE_SIGMAS * sigma_vib:
+                core, w, settle = r_c, 1, 1
+        if not w:
+            w, settle = _choose_resolution(ladder, d_nn - core, n_obs, n, w_user, s_user)
+        locator.core = float(core)
+        out = _census_sites(stream, locator, w, settle, cells, _WALK_BACK_FRAMES)
+        res_frames = max(settle, (w + 1) // 2)
 
     # ---- the census
-    if method == "displacement":
-        out = _census_displacement(stream, thr, w, settle, lookahead)
-    else:
-        out = _census_sites(stream, locator, core, w, settle, cells)
     hop_f, hop_i, hop_vec, disp, site_info = out
     order = np.lexsort((hop_i, hop_f))
     hop_f, hop_i, hop_vec = hop_f[order], hop_i[order], hop_vec[order]
@@ -998,8 +1334,7 @@ def count_hops(traj, species, *, method="displacement", reference=None, threshol
             nearest_site_distance_A=float(d_nn), site_occupancy=occupancy,
             pair_from_site=pf.astype(int), pair_to_site=pt.astype(int),
             pair_hops=cnt.astype(int), hop_from_site=hf, hop_to_site=ht)
-    res_frames = max(settle, (w + 1) // 2)
-    msg = _message(species, total_hops, per_ion, n_ions, duration, thr, res_frames * dt)
+    msg = _message(species, total_hops, per_ion, n_ions, duration, thr, res_frames, dt)
     return HopSummary(
         species=species, method=method, reference=reference, n_ions=n_ions,
         ion_indices=np.asarray(idx, int), n_frames=n, frame_interval_ps=dt,
@@ -1012,7 +1347,8 @@ def count_hops(traj, species, *, method="displacement", reference=None, threshol
         threshold_basis=basis, resting_place_distance_A=float(d_min), smoothing_frames=int(w),
         settle_frames=int(settle),
         time_resolution_ps=float(res_frames * dt), vibration_rms_A=float(sigma_vib),
-        max_frame_step_A=float(scout.max_step), sites=sites, message=msg)
+        max_frame_step_A=float(scout.max_step), sites=sites, message=msg,
+        excursion_radius_A=float(excursion), false_hop_allowance=float(allowance))
 
 
 def _choose_resolution(ladder, reach, n_obs, n, w_user, s_user):
@@ -1036,25 +1372,34 @@ def _choose_resolution(ladder, reach, n_obs, n, w_user, s_user):
     return w, min(s, max(1, n - 1))
 
 
-def _census_displacement(stream, thr, w, settle, lookahead):
+def _census_displacement(stream, thr, w, settle, lookahead, reach=None, delta=0):
     hop_f, hop_i, hop_vec, disp = [], [], [], []
     for ids, pos in stream():
         m = running_median(pos, w)
         frames, ions = _follow_resting_places(m, thr, settle, lookahead)
-        centres, first, _, _ = _stay_centres(m, frames, ions, thr)
-        counts = np.bincount(ions, minlength=len(ids))
-        if len(frames):
-            rows = _hop_rows(first, ions)
-            hop_vec.append(centres[rows + 1] - centres[rows])
-        hop_f.append(frames)
-        hop_i.append(ids[ions])
-        disp.append(centres[first + counts] - centres[first])
+        centres, first, lengths, sid = _stay_centres(m, frames, ions, thr)
+        if reach is None:
+            counts = np.bincount(ions, minlength=len(ids))
+            if len(frames):
+                rows = _hop_rows(first, ions)
+                hop_vec.append(centres[rows + 1] - centres[rows])
+            hop_f.append(frames)
+            hop_i.append(ids[ions])
+            disp.append(centres[first + counts] - centres[first])
+            continue
+        label, places = _refine_stays(pos, frames, ions, centres, first, lengths, sid, thr,
+                                      reach, delta)
+        ci, ct = np.nonzero(label[:, 1:] != label[:, :-1])
+        hop_vec.append(places[label[ci, ct + 1]] - places[label[ci, ct]])
+        hop_f.append(ct + 1)
+        hop_i.append(ids[ci])
+        disp.append(places[label[:, -1]] - places[label[:, 0]])
     return (np.concatenate(hop_f).astype(int), np.concatenate(hop_i).astype(int),
             np.concatenate(hop_vec) if hop_vec else np.zeros((0, 3)),
             np.concatenate(disp), None)
 
 
-def _census_sites(stream, locator, core, w, settle, cells):
+def _census_sites(stream, locator, w, settle, cells, back_frames):
     n = stream.n_frames
     const_cell = bool(np.allclose(cells, cells[:1]))
     inv_cells = None if const_cell else np.linalg.inv(cells)
@@ -1069,6 +1414,8 @@ def _census_sites(stream, locator, core, w, settle, cells):
             fr, fa, ta, first_site = _site_changes(lab[:, j], dec[:, j], settle)
             if first_site < 0:
                 continue
+            if back_frames and len(fr):
+                fr = _walk_back(m[:, j], fr, fa, ta, locator, inv_cells, back_frames)
             v = locator.min_image(locator.cart[ta] - locator.cart[fa])
             hop_f.append(fr)
             hop_i.append(np.full(len(fr), ids[j]))
@@ -1085,13 +1432,58 @@ def _census_sites(stream, locator, core, w, settle, cells):
             (cat(hop_from, int), cat(hop_to, int), occupancy))
 
 
-def _message(species, total, per_ion, n_ions, duration, thr, res_ps):
+def _walk_back(x, frames, from_site, to_site, locator, inv_cells, back_frames):
+    """Move each hop back to the start of the frames that were already nearer the new site.
+
+    A hop is decided when the ion enters the core of the new site; the frames
+    just before, outside both cores but nearer the new site than the old one,
+    already belong to the new stay. The hop moves back over them (at most
+    ``back_frames``, never onto or before the previous hop's frame).
+
+    Parameters
+    ----------
+    x : (n_frames, 3) float, Å
+        Positions of one ion (as assigned).
+    frames, from_site, to_site : (n_hops,) int
+    locator : _SiteLocator
+    inv_cells : (n_frames, 3, 3) float or None
+    back_frames : int
+
+    Returns
+    -------
+    (n_hops,) int
+        Re-timed hop frames.
+    """
+    prev = np.r_[0, frames[:-1]]
+    T = frames[:, None] - np.arange(1, back_frames + 1)[None, :]      # (h, J)
+    ok = T > prev[:, None]
+    Tc = np.maximum(T, 0)
+    xt = x[Tc]
+    if inv_cells is None:
+        f = xt @ locator.inv
+    else:
+        f = np.einsum("hja,hjab->hjb", xt, inv_cells[Tc])
+
+    def d2(site):
+        d = f - locator.frac[site][:, None, :]
+        d -= np.round(d)
+        d = d @ locator.cell
+        return np.einsum("hji,hji->hj", d, d)
+
+    nearer_new = (d2(to_site) < d2(from_site)) & ok
+    back = np.cumprod(nearer_new, axis=1).sum(axis=1)
+    return frames - back
+
+
+def _message(species, total, per_ion, n_ions, duration, thr, res_frames, dt):
     if total == 0:
         return (f"No {species} hop longer than {thr:.3g} Å was seen in {duration:g} ps "
                 f"({n_ions} ions).")
     movers = int(np.sum(per_ion > 0))
+    stays = ("stays down to one frame are counted" if res_frames <= 1 else
+             f"stays shorter than {res_frames * dt:.3g} ps are merged")
     text = (f"{total} {species} hops by {movers} of {n_ions} ions in {duration:g} ps "
-            f"(threshold {thr:.3g} Å; stays shorter than {res_ps:.3g} ps are merged).")
+            f"(threshold {thr:.3g} Å; {stays}).")
     if movers <= 2 and n_ions > 2:
         text += f" Only {movers} ion(s) moved: the diffusion seen is carried by very few ions."
     return text

@@ -3,7 +3,8 @@
 The reference is outside the hop counter: :func:`diffkit.synth.hopping_run`
 draws every hop itself (time, ion, from-site, to-site) from a continuous-time
 Poisson process with exponential residence times, so the true hops are known
-exactly; the tests compare the census with that list.
+exactly; the tests compare the census with that list (the generator's own
+ground truth).
 
 Fair definition of a "true hop" (stated once, used throughout):
 
@@ -11,15 +12,15 @@ Fair definition of a "true hop" (stated once, used throughout):
   the first saved frame at or after it. The site of an ion at a frame is the
   site after its last hop up to that frame, so several hops between two saved
   frames show as one change of site, and a jump there-and-back between two
-  frames shows as nothing — no method can see it.
-* A stay shorter than the census's reported time resolution (a whole number of
-  frames, at most 3 here, and asserted) cannot be told from vibration at
-  σ = 0.3 Å without knowing the sites; such a stay is merged — A→B→C with a
-  short stay at B becomes one hop A→C at the first frame the ion left A.
-* "Matched" is one-to-one, per ion, in time order, within ±3 frames. The
-  matched fraction is taken over the merged true hops (what the method
-  promises to resolve); a detected hop is "false" only if it matches no change
-  of site at all at frame resolution (anything real is not false).
+  frames shows as nothing — no method can see it. Every other change of site
+  is a true hop, **including the entry into and the exit from a stay seen in
+  one frame only** (issue 6 acceptance criterion, as written).
+* "Matched" is one-to-one, per ion, in time order, within ±3 frames. A
+  detected hop is "false" if it matches no true change of site.
+* Only where the user sets the smoothing (no automatic one-frame rules) are
+  stays shorter than the reported time resolution merged — A→B→C with a short
+  stay at B becomes one hop A→C at the first frame the ion left A — and the
+  test of that case scores against the merged list.
 """
 
 import json
@@ -103,37 +104,92 @@ def _match(events, ions, frames, tol=3):
     return matched
 
 
-def _score(run, hops):
+def _score(run, hops, min_stay=1):
+    """Found fraction of the true changes of site, false fraction of the detected hops."""
     n, n_ions = run.trajectory.n_frames, run.truth.initial_site_of_atom.size
-    res = int(round(hops.time_resolution_ps / run.trajectory.frame_interval_ps))
-    merged = _true_events(run.truth, n, n_ions, min_stay=res)
+    events = _true_events(run.truth, n, n_ions, min_stay=min_stay)
     strict = _true_events(run.truth, n, n_ions, min_stay=1)
-    found = _match(merged, hops.hop_ions, hops.hop_frames) / len(merged)
+    found = _match(events, hops.hop_ions, hops.hop_frames) / len(events)
     false = 1.0 - _match(strict, hops.hop_ions, hops.hop_frames) / max(hops.total_hops, 1)
-    return res, found, false, len(strict)
+    return found, false, strict
+
+
+def _one_frame_stays_found(strict, hops):
+    """Stays seen in one frame only (true change at f, next change of the ion at f + 1):
+    the share of them whose entry and exit were both detected at exactly those frames."""
+    ev = sorted(strict)
+    one = [(i, f0) for (i0, f0), (i, f) in zip(ev[:-1], ev[1:]) if i == i0 and f == f0 + 1]
+    det = set(zip(hops.hop_ions.tolist(), hops.hop_frames.tolist()))
+    got = sum(((i, f0) in det) and ((i, f0 + 1) in det) for i, f0 in one)
+    return len(one), got / max(len(one), 1)
 
 
 @pytest.mark.parametrize("method", ["displacement", "sites"])
-@pytest.mark.parametrize("sigma, residence", [(0.1, 10), (0.3, 10), (0.2, 25)])
-def test_true_hops_are_found_and_few_are_false(method, sigma, residence):
-    # site spacing 2 Å, vibration 0.1-0.3 Å rms per axis, exponential residence
-    # with a mean of 10-25 frames (issue 6 acceptance test)
-    run = hopping_run(n_ions=60, n_frames=6000, frame_interval_ps=DT_PS, temperature_K=T_K,
-                      Ea_eV=_Ea_for_residence(residence), attempt_frequency_THz=NU_THZ,
+@pytest.mark.parametrize("sigma", [0.1, 0.2, 0.3])
+def test_every_true_site_change_is_found_and_few_are_false(method, sigma):
+    # issue 6 acceptance test: site spacing 2 Å, vibration 0.1-0.3 Å rms per axis,
+    # exponential residence with a mean of 10 frames, so that stays of one frame
+    # occur (about one stay in ten); >= 95 % of EVERY true change of site matched
+    # within ±3 frames, <= 5 % false. Reference: the generator's own hop list.
+    run = hopping_run(n_ions=40, n_frames=5000, frame_interval_ps=DT_PS, temperature_K=T_K,
+                      Ea_eV=_Ea_for_residence(10), attempt_frequency_THz=NU_THZ,
                       jump_distance_A=2.0, vibration_rms_A=sigma, seed=11)
     hops = count_hops(run.trajectory, "Li", method=method)
-    res, found, false, n_true = _score(run, hops)
-    assert n_true > 10_000
-    # the promised resolution is fine enough that short stays really occur and count
-    assert res <= (1 if sigma <= 0.1 else 3)
-    assert found >= 0.95, (found, res)
-    assert false <= 0.05, (false, res)
+    found, false, strict = _score(run, hops)
+    assert len(strict) > 15_000
+    assert found >= 0.95, found
+    assert false <= 0.05, false
+    # the promised resolution is one frame, and one-frame stays really are counted
+    assert hops.time_resolution_ps == pytest.approx(DT_PS)
+    # (both ends at exactly the right frames; at 0.3 Å the site method sees a frame
+    # inside the 0.74 Å core with probability ≈ 0.9, the χ₃ CDF, so not all)
+    n_one, share = _one_frame_stays_found(strict, hops)
+    assert n_one > 1000
+    assert share >= (0.95 if sigma <= 0.2 else 0.75), share
+    # the allowance for vibration comes from the hops seen while scouting (an undercount)
+    assert 0.02 <= hops.false_hop_allowance <= 0.01 * hops.total_hops
+
+
+def test_user_resolution_merges_short_stays_and_finds_the_rest():
+    # with smoothing set by hand the one-frame rules are off: stays shorter than the
+    # reported resolution (3 frames) are merged, everything longer is found
+    run = hopping_run(n_ions=30, n_frames=4000, Ea_eV=_Ea_for_residence(10),
+                      vibration_rms_A=0.3, jump_distance_A=2.0, seed=12)
+    hops = count_hops(run.trajectory, "Li", smoothing_frames=5, settle_frames=2)
+    assert hops.time_resolution_ps == pytest.approx(3 * DT_PS)
+    assert math.isnan(hops.excursion_radius_A)
+    found, false, strict = _score(run, hops, min_stay=3)
+    assert found >= 0.95 and false <= 0.05
+    # ... and merging really loses the short stays that the automatic rules count
+    auto = count_hops(run.trajectory, "Li")
+    assert _score(run, auto)[0] > _score(run, hops)[0] + 0.05
+
+
+def test_core_and_excursion_radii_match_simulated_vibration():
+    # reference: direct simulation of isotropic Gaussian vibration about a site
+    # (the model behind the radii; the non-central chi-square law is an analytic result)
+    from diffkit.hops import _core_radius, _excursion_radius
+
+    rng = np.random.default_rng(7)
+    sigma, n_obs, allowance = 0.5, 10_000, 10.0
+    g = rng.normal(0.0, sigma, (1_000_000, 3))
+    # six neighbours 2 Å away on the axes (simple cubic)
+    nb = np.array([[2, 0, 0], [-2, 0, 0], [0, 2, 0], [0, -2, 0], [0, 0, 2], [0, 0, -2]], float)
+    r, expected = _core_radius(np.full((1, 6), 2.0), np.ones(1), sigma, n_obs, allowance, 0.9)
+    assert 0.2 < r < 0.9 and expected == pytest.approx(allowance, rel=1e-3)
+    d2 = ((g[:, None, :] - nb[None]) ** 2).sum(-1)
+    p_sim = float(np.mean((d2 < r * r).any(axis=1)))
+    assert 2 * n_obs * p_sim == pytest.approx(allowance, rel=0.15)
+    R = _excursion_radius(n_obs, sigma, allowance)
+    p_sim = float(np.mean((g * g).sum(1) > R * R))
+    assert 2 * n_obs * p_sim == pytest.approx(allowance, rel=0.15)
 
 
 @pytest.mark.parametrize("method", ["displacement", "sites"])
-@pytest.mark.parametrize("sigma", [0.1, 0.3])
+@pytest.mark.parametrize("sigma", [0.1, 0.2, 0.3])
 def test_vibrating_crystal_has_no_hops(method, sigma):
-    # Ea = 5 eV at 600 K: Γ ≈ 10 THz · exp(−97) — no hop in the run (checked on the truth)
+    # Ea = 5 eV at 600 K: Γ ≈ 10 THz · exp(−97) — no hop in the run (checked on the truth);
+    # 2,500 frames (issue 6: >= 2,000), vibration 0.1-0.3 Å rms per axis
     run = hopping_run(n_ions=64, n_frames=2500, Ea_eV=5.0, vibration_rms_A=sigma, seed=5)
     assert run.truth.n_hops == 0
     hops = count_hops(run.trajectory, "Li", method=method)
@@ -227,6 +283,8 @@ def _rattler_trajectory(method_sigma=0.05, n_frames=1500, seed=2):
 
 @pytest.mark.parametrize("method", ["displacement", "sites"])
 def test_rattling_at_a_boundary_is_not_a_hop(method):
+    # hysteresis (a move counts only on reaching well inside the new place) is common
+    # practice; a position swinging across the midpoint of two sites never does
     traj = _rattler_trajectory()
     hops = count_hops(traj, "Li", method=method)
     assert hops.hops_per_ion[0] == 0
