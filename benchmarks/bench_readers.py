@@ -16,6 +16,12 @@ prints, measured in this run:
 * the ratio diffkit / ASE, from wall-clock time and from CPU time (process
   time, which is less disturbed by other jobs on a shared machine).
 
+LAMMPS dumps are decoded by pyarrow's CSV reader when pyarrow is installed
+(``diffkit[fast]``); the script then also times the numpy decoder on the same
+file (row ``lammpsdump/numpy``), the path taken without pyarrow. The line
+"decoded by" says which path each LAMMPS row took. ``DIFFKIT_READ_THREADS=2``
+(environment) lets two threads decode.
+
 Usage::
 
     python benchmarks/bench_readers.py                  # 200 atoms x 20,000 frames
@@ -95,7 +101,7 @@ def main(argv=None):
 
     import ase.io
 
-    from diffkit.io import read_raw
+    from diffkit.io import _parsing, read_raw
 
     formats = [f for f in args.formats.split(",") if f]
     ase_frames = min(args.ase_frames, args.frames)
@@ -122,6 +128,20 @@ def main(argv=None):
                 dkp_w, dkp_c, _ = timed(lambda: read_raw(part, format=fmt, **kw), args.repeat)
                 ase_w, ase_c, images = timed(
                     lambda: ase.io.read(part, index=":", format=ASE_FORMATS[fmt]), 1)
+                extra = []
+                if fmt == "lammpsdump" and _parsing.fast_parse_available():
+                    _parsing.FAST_PARSE = False  # the numpy decoder, as without pyarrow
+                    try:
+                        np_w, np_c, slow = timed(lambda: read_raw(full, format=fmt, **kw),
+                                                 args.repeat)
+                        npp_w, _, _ = timed(lambda: read_raw(part, format=fmt, **kw),
+                                            args.repeat)
+                    finally:
+                        _parsing.FAST_PARSE = True
+                    assert np.array_equal(slow.positions, raw.positions)  # bit for bit
+                    del slow
+                    extra.append(("lammpsdump/numpy", mb_full, mb_full / np_w, mb_full / np_c,
+                                  mb_part / npp_w, mb_part / ase_w, mb_part / ase_c))
             # the same numbers as ASE's (a sanity check, not the benchmark's point)
             ref = np.array([a.positions for a in images])
             got = read_raw(part, format=fmt, **kw).positions
@@ -131,6 +151,7 @@ def main(argv=None):
             del raw, images
             rows.append((fmt, mb_full, mb_full / dk_w, mb_full / dk_c, mb_part / dkp_w,
                          mb_part / ase_w, mb_part / ase_c))
+            rows.extend(extra)
             os.unlink(full)
             os.unlink(part)
     finally:
@@ -139,14 +160,17 @@ def main(argv=None):
     print()
     print(f"{args.atoms} atoms x {args.frames} frames; ASE read the first {ase_frames} frames "
           "(a file of their own); MB/s = file size / time")
-    head = (f"{'format':<11} {'size MB':>8} {'diffkit MB/s':>13} {'(cpu)':>7} "
+    fast = "pyarrow's CSV reader" if _parsing.fast_parse_available() else \
+        "the numpy decoder (pyarrow not installed or DIFFKIT_FAST_PARSE=0)"
+    print(f"LAMMPS atom lines decoded by {fast}; decoding threads: {_parsing.THREADS}")
+    head = (f"{'format':<16} {'size MB':>8} {'diffkit MB/s':>13} {'(cpu)':>7} "
             f"{'diffkit on part':>16} {'ASE MB/s':>9} {'(cpu)':>7} {'ratio wall':>11} "
             f"{'ratio cpu':>10}")
     print(head)
     print("-" * len(head))
-    goals = {"xdatcar": 20, "lammpsdump": 8, "extxyz": 20}
+    goals = {"xdatcar": 20, "lammpsdump": 8, "lammpsdump/numpy": 8, "extxyz": 20}
     for fmt, mb, dk_w, dk_c, dkp_w, ase_w, ase_c in rows:
-        print(f"{fmt:<11} {mb:8.0f} {dk_w:13.1f} {dk_c:7.1f} {dkp_w:16.1f} {ase_w:9.1f} "
+        print(f"{fmt:<16} {mb:8.0f} {dk_w:13.1f} {dk_c:7.1f} {dkp_w:16.1f} {ase_w:9.1f} "
               f"{ase_c:7.1f} {dk_w / ase_w:10.1f}x {dk_c / ase_c:9.1f}x   "
               f"(goal >= {goals[fmt]}x)")
 

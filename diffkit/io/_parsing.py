@@ -6,7 +6,9 @@ Every reader has two paths over the same bytes:
   their numbers with a handful of numpy operations: :class:`FixedWidthLayout`
   for files whose numbers sit in fixed columns (XDATCAR, extended XYZ as ASE
   and diffkit write it) and :func:`decode_fields` for whitespace-separated
-  fields of any width (LAMMPS ``%g``). Both only *recognise* text; anything
+  fields of any width (LAMMPS ``%g``), and :func:`decode_spaced_fields`, the
+  same with pyarrow's C++ CSV reader when pyarrow is installed (LAMMPS dumps,
+  fields separated by single spaces). They only *recognise* text; anything
   unexpected (a stray character, a short line, a changed layout) makes them
   give up (return ``None``) rather than raise;
 - a **careful path** that walks the same frames line by line with
@@ -19,7 +21,8 @@ Numbers come out bit-for-bit as a correctly rounded decimal parser (Python's
 significant digits is an integer below 2**53 divided by a power of ten, both
 exact in float64, and IEEE division rounds the quotient correctly. Numbers with
 more digits, exponents or other spellings go through Python's ``float`` one by
-one.
+one. pyarrow's reader rounds correctly as well (the tests compare it with
+``float``).
 
 Lines end at ``\\n`` (a ``\\r`` before it is whitespace). Frames and lines in
 messages are counted from 1, as a text editor shows them.
@@ -39,7 +42,8 @@ from ..errors import DiffkitWarning, InputError, UsageError
 __all__ = ["LineSource", "BadLine", "CutOff", "parse_columns", "element_symbol",
            "normalize_type_map", "opened", "is_number_line", "chunk_frames", "warn",
            "LINE_BUDGET", "FixedWidthLayout", "decode_fields", "field_codes", "text_codes",
-           "lines_of", "in_parallel", "split_for_threads", "THREADS"]
+           "lines_of", "in_parallel", "split_for_threads", "THREADS", "decode_spaced_fields",
+           "fast_parse_available", "FAST_PARSE", "FAST_MIN_BYTES"]
 
 #: Largest number of atom lines held in memory at once (bounds a chunk for big systems).
 LINE_BUDGET = 500_000
@@ -530,6 +534,9 @@ def _field_bounds(A, n_lines, n_fields):
     if int(np.count_nonzero(A < 32)) != n_nl:
         if ((A < 32) & (A != 9) & (A != 10) & (A != 13)).any():
             return None
+        cr = np.flatnonzero(A == 13)  # only before a newline (the careful parser splits there)
+        if cr.size and not (A[np.minimum(cr + 1, B - 1)] == 10).all():
+            return None
         space = (A == 32) | (A == 9) | (A == 10) | (A == 13)
     else:
         space = A <= 32
@@ -927,6 +934,144 @@ class FixedWidthLayout:
             if neg is not None:
                 np.negative(col, out=col, where=neg)
         return True
+
+
+# ----------------------------------------------------------------------------- with pyarrow
+#: Whether the LAMMPS reader may hand its atom lines to pyarrow's CSV reader (C++), when
+#: pyarrow is installed (``pip install "diffkit[fast]"``); the numpy decoder otherwise. The
+#: environment variable DIFFKIT_FAST_PARSE=0 turns it off.
+FAST_PARSE = os.environ.get("DIFFKIT_FAST_PARSE", "1").strip().lower() not in (
+    "0", "off", "no", "false")
+#: Fewest bytes of atom lines worth handing to pyarrow (below, importing it costs more than
+#: it saves; tests set 0).
+FAST_MIN_BYTES = 1 << 20
+_ARROW = None  # (pyarrow, pyarrow.csv) once imported; False when not installed
+
+
+def _arrow():
+    """``(pyarrow, pyarrow.csv)``, or None when pyarrow is off or not installed."""
+    global _ARROW
+    if not FAST_PARSE:
+        return None
+    if _ARROW is None:
+        try:
+            import pyarrow
+            import pyarrow.csv
+        except ImportError:
+            _ARROW = False
+        else:
+            _ARROW = (pyarrow, pyarrow.csv)
+    return _ARROW or None
+
+
+def fast_parse_available():
+    """True when :func:`decode_spaced_fields` can work (pyarrow installed and not turned off)."""
+    return _arrow() is not None
+
+
+def decode_spaced_fields(data, n_lines, n_fields, usecols, textcols=(), lines_per_frame=None,
+                         frame_ends=None):
+    """:func:`decode_fields` for lines whose fields are separated by single spaces, with pyarrow.
+
+    pyarrow's CSV reader (C++, several times faster than the numpy decoder)
+    splits the lines at single spaces and converts every field (numbers to
+    float64, correctly rounded like Python's ``float``; the text columns as
+    words). It refuses a line whose number of fields differs from the first
+    line's, an empty field (two spaces in a row, a space at the start of a
+    line) and a field that is not a number. What it accepts is therefore split
+    exactly as a whitespace-splitting reader splits it; one space at the end of
+    every line (as some writers leave) is allowed.
+
+    Parameters
+    ----------
+    data : bytes
+        Exactly ``n_lines`` lines, each ending with ``\\n``.
+    n_lines, n_fields : int
+    usecols : sequence of int
+        Columns to convert to float64. The other columns must hold numbers too
+        (any, even NaN), except ``textcols``.
+    textcols : sequence of int
+        Columns returned as codes (see :func:`text_codes`): printable ASCII
+        words of at most 8 bytes.
+    lines_per_frame : int, optional
+    frame_ends : (n_frames,) int array, optional
+        Where each frame of ``lines_per_frame`` lines ends in ``data``; checked.
+
+    Returns
+    -------
+    (values, codes) or None
+        As :func:`decode_fields`. None when pyarrow is missing or turned off,
+        or when the text is not exactly that (the caller then tries the numpy
+        decoder, which takes any whitespace, and the careful parser, which says
+        what is wrong).
+    """
+    arrow = _arrow()
+    if arrow is None or not data or data[-1:] != b"\n" or n_lines < 1:
+        return None
+    pa, pcsv = arrow
+    newline = np.frombuffer(data, np.uint8) == 10
+    if np.count_nonzero(newline) != n_lines:
+        return None
+    if frame_ends is not None:  # each frame holds its lines
+        per = lines_per_frame
+        if per * len(frame_ends) != n_lines or int(frame_ends[-1]) != len(data):
+            return None
+        a = 0
+        for b in frame_ends.tolist():
+            if not newline[b - 1] or np.count_nonzero(newline[a:b]) != per:
+                return None
+            a = b
+    first = data.find(b"\n")
+    trailing = first > 0 and data[first - 1] == 32  # one space ends every line
+    names = [str(i) for i in range(n_fields + trailing)]
+    text = {int(c) for c in textcols}
+    words = pa.dictionary(pa.int32(), pa.string())
+    types = {names[c]: (words if c in text else pa.float64()) for c in range(n_fields)}
+    try:
+        table = pcsv.read_csv(
+            pa.py_buffer(data),
+            read_options=pcsv.ReadOptions(column_names=names, use_threads=False,
+                                          block_size=1 << 22),
+            parse_options=pcsv.ParseOptions(delimiter=" ", quote_char=False, double_quote=False,
+                                            escape_char=False, newlines_in_values=False,
+                                            ignore_empty_lines=False),
+            convert_options=pcsv.ConvertOptions(column_types=types,
+                                                include_columns=names[:n_fields],
+                                                null_values=[], true_values=[], false_values=[],
+                                                strings_can_be_null=False,
+                                                quoted_strings_can_be_null=False))
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError):
+        return None
+    if table.num_rows != n_lines:  # e.g. a lone carriage return splits a line in two
+        return None
+    values = np.empty((n_lines, len(usecols)))
+    for k, c in enumerate(usecols):
+        column = table.column(int(c))
+        if column.null_count:
+            return None
+        a = 0
+        for chunk in column.chunks:
+            values[a:a + len(chunk), k] = chunk.to_numpy(zero_copy_only=False)
+            a += len(chunk)
+    if not np.isfinite(values).all():
+        return None
+    codes = []
+    for c in textcols:
+        out = np.empty(n_lines, np.uint64)
+        a = 0
+        for chunk in table.column(int(c)).chunks:
+            got = [w.encode("utf-8") for w in chunk.dictionary.to_pylist()]
+            if chunk.null_count or not all(map(_printable_word, got)):
+                return None
+            out[a:a + len(chunk)] = text_codes(got)[chunk.indices.to_numpy(zero_copy_only=False)]
+            a += len(chunk)
+        codes.append(out)
+    return values, codes
+
+
+def _printable_word(w):
+    """True for 1..8 bytes of printable ASCII other than the space."""
+    return 0 < len(w) <= 8 and all(33 <= b <= 126 for b in w)
 
 
 # ----------------------------------------------------------------------------- symbols

@@ -24,10 +24,12 @@ assumed with a warning. ``steps`` holds TIMESTEP; the time per step is the
 user's ``md_timestep_ps``.
 
 Speed: the atom lines of many frames are converted at once (see
-:mod:`diffkit.io._parsing`); ids, types and element names that repeat
-frame after frame (``dump_modify sort id``) are read once per chunk. Whatever
-that bulk path does not recognise is read line by line, which names the file,
-frame and line of any problem.
+:mod:`diffkit.io._parsing`): by pyarrow's CSV reader when pyarrow is
+installed (``diffkit[fast]``) and the fields are separated by single spaces,
+else by the numpy decoder, which reads ids, types and element names that
+repeat frame after frame (``dump_modify sort id``) once per chunk. Both give
+the same numbers bit for bit. Whatever neither recognises is read line by
+line, which names the file, frame and line of any problem.
 """
 
 from __future__ import annotations
@@ -39,9 +41,10 @@ import numpy as np
 from ..errors import InputError
 from ..units import parse_time_ps
 from . import FrameChunk
-from ._parsing import (BadLine, CutOff, chunk_frames, decode_fields, element_symbol,
-                       field_codes, in_parallel, lines_of, normalize_type_map, opened,
-                       parse_columns, split_for_threads, warn)
+from . import _parsing
+from ._parsing import (BadLine, CutOff, chunk_frames, decode_fields, decode_spaced_fields,
+                       element_symbol, fast_parse_available, field_codes, in_parallel, lines_of,
+                       normalize_type_map, opened, parse_columns, split_for_threads, warn)
 
 __all__ = ["sniff", "iter_chunks", "UNIT_STYLES"]
 
@@ -157,6 +160,7 @@ class _DumpReader:
         self.ref_ids = None
         self.ref_types = None
         self.species = None
+        self._fast = fast_parse_available()  # pyarrow decodes the atom lines
 
     def _error(self, frame, line, what):
         return InputError(f"{self.name}: frame {frame} (line {line}): {what}")
@@ -429,6 +433,7 @@ class _DumpReader:
             frames, bodies = [], []
             p = p0
             status = "more"  # also when the buffer ends before the next whole frame
+            marker, ref, bounds = self._marker, self._head_ref, self._bounds
             while len(bodies) < want:
                 if p >= len(buf) and src.eof:
                     status = "end"
@@ -436,11 +441,26 @@ class _DumpReader:
                 fr = _Frame()
                 fr.lineno = lineno + 1
                 fr.time = None
-                q = self._bulk_header(buf, p, fr)
+                q = -2
+                # the usual frame: the header of the last one with another step number
+                if ref is not None and bounds is not None and buf.startswith(ref[0], p):
+                    s0 = p + len(ref[0])
+                    s1 = buf.find(b"\n", s0)
+                    if s1 >= 0 and buf.startswith(ref[1], s1 + 1):
+                        try:
+                            fr.step = int(buf[s0:s1])
+                        except ValueError:
+                            pass
+                        else:
+                            fr.bounds = bounds
+                            q = s1 + 1 + len(ref[1])
+                if q == -2:
+                    q = self._bulk_header(buf, p, fr)
+                    ref, bounds = self._head_ref, self._bounds
                 if q is None or q < 0:
                     status = "stuck" if q is None or src.eof else "more"
                     break
-                e = buf.find(self._marker, q - 1)
+                e = buf.find(marker, q - 1)
                 if e >= 0:
                     e += 1
                 elif src.eof:
@@ -550,6 +570,17 @@ class _DumpReader:
         def decode(a, b):
             data = b"".join(view[x:y] for x, y in bodies[a:b])
             ends = np.cumsum([y - x for x, y in bodies[a:b]])
+            if self._fast and len(data) >= _parsing.FAST_MIN_BYTES:
+                got = decode_spaced_fields(data, (b - a) * n, len(lay.columns), lay.usecols,
+                                           textcols=text, lines_per_frame=n, frame_ends=ends)
+                if got is not None:
+                    return got
+                got = decode_fields(data, (b - a) * n, len(lay.columns), lay.usecols,
+                                    textcols=text, dotted=dotted, repeat=(n, lead),
+                                    frame_ends=ends)
+                if got is not None:  # a layout pyarrow refuses (e.g. aligned columns)
+                    self._fast = False
+                return got
             return decode_fields(data, (b - a) * n, len(lay.columns), lay.usecols,
                                  textcols=text, dotted=dotted, repeat=(n, lead),
                                  frame_ends=ends)
@@ -605,8 +636,11 @@ class _DumpReader:
             if want_elements:
                 elements.append(np.loadtxt(all_lines, dtype=str, usecols=[lay.element_col],
                                            comments=None, ndmin=1).reshape(len(run), n))
-        data = np.concatenate(datas)
-        elements = np.concatenate(elements) if want_elements else None
+        data = datas[0] if len(datas) == 1 else np.concatenate(datas)
+        if want_elements:
+            elements = elements[0] if len(elements) == 1 else np.concatenate(elements)
+        else:
+            elements = None
         if lay.s_id is not None:
             ids = data[:, :, lay.s_id.start]
             if np.any(ids != np.round(ids)):
