@@ -46,7 +46,7 @@ __all__ = ["LineSource", "BadLine", "CutOff", "parse_columns", "element_symbol",
            "fast_parse_available", "FAST_PARSE", "FAST_MIN_BYTES"]
 
 #: Largest number of atom lines held in memory at once (bounds a chunk for big systems).
-LINE_BUDGET = 500_000
+LINE_BUDGET = 1 << 17
 #: Bytes read from the file at a time (more when a chunk of frames needs it).
 READ_BLOCK = 1 << 22
 #: Threads that decode the numbers of a LAMMPS dump at the same time (numpy
@@ -1030,7 +1030,7 @@ def decode_spaced_fields(data, n_lines, n_fields, usecols, textcols=(), lines_pe
     try:
         table = pcsv.read_csv(
             pa.py_buffer(data),
-            read_options=pcsv.ReadOptions(column_names=names, use_threads=False,
+            read_options=pcsv.ReadOptions(column_names=names, use_threads=THREADS > 1,
                                           block_size=1 << 22),
             parse_options=pcsv.ParseOptions(delimiter=" ", quote_char=False, double_quote=False,
                                             escape_char=False, newlines_in_values=False,

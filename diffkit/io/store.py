@@ -49,6 +49,13 @@ def _frames_per_chunk(n_atoms):
     return int(max(16, min(8192, _CHUNK_BYTES // per_frame)))
 
 
+def _as_slice(idx):
+    """A slice for consecutive indices (a view instead of a copy when taking them)."""
+    if len(idx) and np.all(np.diff(idx) == 1):
+        return slice(int(idx[0]), int(idx[-1]) + 1)
+    return idx
+
+
 class _RunWriter:
     """Write frames to a new run file as they come (bounded memory)."""
 
@@ -89,42 +96,59 @@ class _RunWriter:
             self.com_ds[s] = c.create_dataset(s, (0, 3), maxshape=(None, 3), dtype="f8",
                                               chunks=(4096, 3))
             self.com_ds[s].attrs["unit"] = "Å"
-        # buffer whole position chunks before writing, so each HDF5 chunk is written once
+        # frames are copied into one preallocated buffer of whole HDF5 chunks and written
+        # when it is full, so each chunk is written once and no reader chunk is kept alive
         self.buffer_frames = max(self.fchunk, int(buffer_MB * 2**20 // (n * 24)) // self.fchunk
                                  * self.fchunk)
-        self._buf = []
+        self._groups = [_as_slice(np.flatnonzero(self.species == s)) for s in self.com]
+        self._bt = self._bc = self._bp = self._bv = None
         self._buffered = 0
         self.n_frames = 0
 
+    def _allocate(self):
+        m, n = self.buffer_frames, self.n_atoms
+        self._bt = np.empty(m)
+        self._bc = np.empty((m, 3, 3))
+        self._bp = np.empty((m, n, 3))
+        self._bv = None if self.vel is None else np.empty((m, n, 3))
+
     def append(self, times, cells, positions, velocities):
-        for s in self.com:
-            idx = np.flatnonzero(self.species == s)
-            w = self.masses[idx]
-            self.com[s].append(np.einsum("a,fax->fx", w, positions[:, idx, :]) / w.sum())
-        self._buf.append((times, cells, positions, velocities))
-        self._buffered += len(times)
-        if self._buffered >= self.buffer_frames:
-            self.flush()
+        done, k = 0, len(times)
+        while done < k:
+            if self._bt is None:
+                self._allocate()
+            a = self._buffered
+            take = min(k - done, self.buffer_frames - a)
+            sl = slice(done, done + take)
+            self._bt[a:a + take] = times[sl]
+            self._bc[a:a + take] = cells[sl]
+            self._bp[a:a + take] = positions[sl]
+            if self._bv is not None:
+                self._bv[a:a + take] = velocities[sl]
+            for (s, parts), idx in zip(self.com.items(), self._groups):
+                w = self.masses[idx]
+                parts.append(np.einsum("a,fax->fx", w, self._bp[a:a + take, idx, :]) / w.sum())
+            self._buffered += take
+            done += take
+            if self._buffered >= self.buffer_frames:
+                self.flush()
 
     def flush(self):
-        if not self._buf:
+        m = self._buffered
+        if not m:
             return
-        times = np.concatenate([b[0] for b in self._buf])
-        cells = np.concatenate([b[1] for b in self._buf])
-        pos = np.concatenate([b[2] for b in self._buf])
-        vel = None if self.vel is None else np.concatenate([b[3] for b in self._buf])
-        self._buf, self._buffered = [], 0
-        a, b = self.n_frames, self.n_frames + len(times)
-        for ds, data in ((self.times, times), (self.cells, cells), (self.pos, pos),
-                         (self.vel, vel)):
+        a, b = self.n_frames, self.n_frames + m
+        for ds, data in ((self.times, self._bt), (self.cells, self._bc), (self.pos, self._bp),
+                         (self.vel, self._bv)):
             if ds is None:
                 continue
             ds.resize(b, axis=0)
-            ds[a:b] = data
+            ds[a:b] = data[:m]
         for s, parts in self.com.items():
             self.com_ds[s].resize(b, axis=0)
             self.com_ds[s][a:b] = np.concatenate(parts)
             parts.clear()
+        self._buffered = 0
         self.n_frames = b
 
     def close(self):
