@@ -659,7 +659,10 @@ def assess_run(traj, species, *, reference=None, window=None, method="gls",
         f"warn above {th.hops_per_frame_warn:g}, fail above {th.hops_per_frame_fail:g}",
         f"an ion hops on average every {_every(per_frame)} saved frames of {dt:g} ps "
         f"({counted:.3g} hops per ion per frame counted, {implied:.3g} implied by D); "
-        f"stays shorter than {hops.time_resolution_ps:.3g} ps are merged."))
+        + (f"stays shorter than {hops.time_resolution_ps:.3g} ps are merged."
+           if hops.time_resolution_ps > dt * (1 + 1e-9) else
+           "a stay of one saved frame is counted; hops back and forth between two saved "
+           "frames cannot be seen."))
     if st != "pass":
         better_dt = dt * th.hops_per_frame_warn / per_frame
         advice.append((35, f"Save frames more often (every {better_dt:.2g} ps or less instead of "
