@@ -662,7 +662,7 @@ def assess_run(traj, species, *, reference=None, window=None, method="gls",
         + (f"stays shorter than {hops.time_resolution_ps:.3g} ps are merged."
            if hops.time_resolution_ps > dt * (1 + 1e-9) else
            "a stay of one saved frame is counted; hops back and forth between two saved "
-           "frames cannot be seen."))
+           "frames cannot be seen.")))
     if st != "pass":
         better_dt = dt * th.hops_per_frame_warn / per_frame
         advice.append((35, f"Save frames more often (every {better_dt:.2g} ps or less instead of "
