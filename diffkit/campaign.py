@@ -4,6 +4,7 @@ Layout of the output folder (``--out``)::
 
     runs/<candidate>/<label>.h5          run file: trajectory + /results + attrs input_key
     runs/<candidate>/<label>.failed.json a run that failed: its one-line reason and key
+    runs/<candidate>/<label>.figures.jsonl  the run's report figures, drawn by its worker
     candidates/<candidate>.json          Arrhenius fit, σ(target) with band, tier, flags
     summary.csv, summary.json            candidates ranked by σ(target)
     report.html                          the self-contained report
@@ -19,12 +20,21 @@ file is written atomically (temporary file, then rename), so a campaign killed
 at any point resumes cleanly: a half-written file is never taken as done.
 Every resampling inside the analysis is seeded from the data, so results do
 not depend on order, pool size or interruptions.
+
+When the report is wanted, each worker also draws its run's report figures
+right after the analysis and keeps them, encoded, in the run's figure file
+(keyed by the run key and by what draws the figures: diffkit's and
+matplotlib's versions and the drawing code), so that the main process only
+assembles the report. Figures are not results: they never enter the results
+or the summaries; a missing or stale figure file only means the report draws
+that run's figures itself.
 """
 
 from __future__ import annotations
 
 import csv
 import dataclasses
+import functools
 import hashlib
 import io
 import json
@@ -88,6 +98,35 @@ def _run_key(file_hashes, read_options, analysis):
     return hashlib.sha256(blob.encode()).hexdigest()
 
 
+@functools.lru_cache(maxsize=None)
+def _figure_style():
+    """A digest of what draws the report figures: versions and the drawing code's source.
+
+    Any change to the figures, their captions or their encoding (the modules
+    below, matplotlib, diffkit's version) changes it, so cached figures are
+    drawn again. Read from the files, without importing matplotlib.
+    """
+    from importlib import metadata
+
+    h = hashlib.sha256(_version_tag().encode())
+    try:
+        h.update(metadata.version("matplotlib").encode())
+    except metadata.PackageNotFoundError:  # pragma: no cover - matplotlib is a dependency
+        h.update(b"matplotlib ?")
+    folder = os.path.join(os.path.dirname(os.path.abspath(__file__)), "report")
+    for name in ("plots.py", "html.py", "campaign_report.py"):
+        try:
+            with open(os.path.join(folder, name), "rb") as f:
+                h.update(f.read())
+        except OSError:  # an installation without sources: the version alone
+            h.update(name.encode())
+    return h.hexdigest()
+
+
+def _figure_key(run_key):
+    return hashlib.sha256(f"{run_key}:{_figure_style()}".encode()).hexdigest()
+
+
 # --------------------------------------------------------------------------- tasks
 @dataclasses.dataclass(frozen=True)
 class _Task:
@@ -99,6 +138,9 @@ class _Task:
     key: str
     run_path: str
     failed_path: str
+    figures_path: str = ""
+    figure_key: str = ""
+    draw_figures: bool = False  # draw the report figures in the worker (not part of the key)
 
 
 @dataclasses.dataclass(frozen=True)
@@ -150,6 +192,7 @@ def _plan_tasks(manifest, out_dir, cache):
             folder = os.path.join(out_dir, "runs", slug(cand.name))
             run_path = os.path.join(folder, slug(label) + ".h5")
             failed_path = os.path.join(folder, slug(label) + ".failed.json")
+            figures_path = os.path.join(folder, slug(label) + ".figures.jsonl")
             read_opts = _read_options_dict(run)
             analysis = _analysis_settings(cand, run)
             try:
@@ -162,7 +205,7 @@ def _plan_tasks(manifest, out_dir, cache):
             except InputError as exc:
                 hashes, key = None, "unreadable:" + str(exc)
             tasks.append(_Task(cand.name, label, tuple(run.files), read_opts, analysis, key,
-                               run_path, failed_path))
+                               run_path, failed_path, figures_path, _figure_key(key)))
     return tasks
 
 
@@ -216,6 +259,8 @@ def _execute(task):
 
     previous = _previous_outcome(task)
     if previous is not None:
+        if previous.status == "reused":
+            _cache_figures(task, previous.results)
         return previous
     try:
         if task.key.startswith("unreadable:"):
@@ -236,7 +281,7 @@ def _execute(task):
             _store_results(tmp, results, task.key)
         if os.path.exists(task.failed_path):
             os.unlink(task.failed_path)
-        return RunOutcome(task.candidate, task.label, "done", task.run_path, results=results)
+        outcome = RunOutcome(task.candidate, task.label, "done", task.run_path, results=results)
     except Exception as exc:  # a bad run must not stop the campaign
         reason = str(exc) if isinstance(exc, DiffkitError) else \
             f"{type(exc).__name__}: {exc} (unexpected; details in the .failed.json file)"
@@ -249,6 +294,65 @@ def _execute(task):
             json.dump(record, f, indent=2)
         return RunOutcome(task.candidate, task.label, "failed", task.run_path,
                           reason=record["reason"])
+    # after the run file is complete: a kill while drawing costs only the figures
+    _cache_figures(task, results)
+    return outcome
+
+
+# --------------------------------------------------------------------------- figure files
+def _cache_figures(task, results):
+    """Draw the run's report figures and keep them in its figure file. Never raises.
+
+    The figure file is JSON lines: a header (the figure key, the number of
+    images and the size of what follows in bytes), then one image record per
+    line (as :func:`diffkit.report.html.render_run_images` makes them). It is
+    written atomically, and read only when its key matches and it is whole.
+    """
+    if not task.draw_figures or _figures_ready(task):
+        return
+    try:
+        from .report.campaign_report import render_campaign_run_images
+
+        images = render_campaign_run_images(task.label, results)
+        body = "".join(json.dumps(im) + "\n" for im in images).encode()
+        header = {"figure_key": task.figure_key, "n_images": len(images),
+                  "body_bytes": len(body)}
+        with atomic_write(task.figures_path, "wb") as f:
+            f.write(json.dumps(header).encode() + b"\n")
+            f.write(body)
+    except Exception:  # noqa: BLE001 - figures are optional: the report then draws them itself
+        pass
+
+
+def _figures_ready(task):
+    """True when the run's figure file was made for its present key and is whole.
+
+    Reads the header line only (cheap enough for every reused run of a re-run).
+    """
+    try:
+        with open(task.figures_path, "rb") as f:
+            line = f.readline()
+            size = os.fstat(f.fileno()).st_size
+        header = json.loads(line)
+    except (OSError, ValueError):
+        return False
+    return (isinstance(header, dict) and header.get("figure_key") == task.figure_key
+            and header.get("body_bytes") == size - len(line))
+
+
+def _read_figures(task):
+    """The run's cached image records, or None when missing, stale or not whole."""
+    if not _figures_ready(task):
+        return None
+    try:
+        with open(task.figures_path, encoding="utf-8") as f:
+            header = json.loads(f.readline())
+            images = tuple(json.loads(line) for line in f if line.strip())
+    except (OSError, ValueError):
+        return None
+    if len(images) != header.get("n_images") or not all(isinstance(i, dict) for i in images):
+        return None
+    return images
 
 
 def _store_results(path, results, key):
@@ -348,6 +452,38 @@ def _run_tasks(tasks, workers, scheduler, progress):
     return out
 
 
+_MMAP_THRESHOLD = 32 * 1024 * 1024  # bytes: the largest value glibc's adaptive threshold takes
+_malloc_tuned = []
+
+
+def _restore_mmap_threshold():
+    """Give a Dask worker back the C library's usual handling of large arrays (once).
+
+    Dask's nanny starts workers with ``MALLOC_TRIM_THRESHOLD_`` set, which
+    freezes glibc's adaptive mmap threshold at 128 KiB: every large numpy
+    array of the analysis is then mapped and unmapped afresh, and the page
+    faults cost about a quarter of the run time. Setting the threshold to
+    32 MiB (the adaptive threshold's maximum; the same as the environment
+    variable ``MALLOC_MMAP_THRESHOLD_``) gives it back. Left alone when that
+    variable is set, and where the C library has no ``mallopt`` (not glibc).
+    """
+    if _malloc_tuned or "MALLOC_MMAP_THRESHOLD_" in os.environ:
+        return
+    _malloc_tuned.append(True)
+    try:
+        import ctypes
+
+        ctypes.CDLL(None).mallopt(-3, _MMAP_THRESHOLD)  # -3: M_MMAP_THRESHOLD (malloc.h)
+    except (OSError, AttributeError, TypeError):  # pragma: no cover - not glibc
+        pass
+
+
+def _execute_on_dask(task):
+    """A Dask worker's task: :func:`_execute` with the worker's malloc made usual."""
+    _restore_mmap_threshold()
+    return _execute(task)
+
+
 def _run_dask(tasks, scheduler, progress):
     try:
         from dask.distributed import Client, as_completed
@@ -360,7 +496,7 @@ def _run_dask(tasks, scheduler, progress):
     except (OSError, TimeoutError, ValueError) as exc:
         raise UsageError(f"cannot reach a Dask scheduler at {scheduler!r}: {exc}") from exc
     try:
-        futures = client.map(_execute, tasks, pure=False)
+        futures = client.map(_execute_on_dask, tasks, pure=False)
         done = 0
         for _ in as_completed(futures):
             done += 1
@@ -505,6 +641,18 @@ def run_campaign(manifest_path, out_dir, *, workers=None, scheduler=None, progre
     # unchanged runs are taken from their files here: no pool or cluster for them
     outcomes = [_previous_outcome(t) for t in tasks]
     todo = [i for i, o in enumerate(outcomes) if o is None]
+    if report:
+        # the workers draw the report's run figures; reused runs whose figures are missing
+        # or stale (the report's code changed, or the last campaign had no report) get
+        # them drawn there too
+        redraw = [i for i, o in enumerate(outcomes)
+                  if o is not None and o.status == "reused" and not _figures_ready(tasks[i])]
+        if todo or redraw:
+            from .report.campaign_report import run_figures_wanted
+
+            if run_figures_wanted(len(tasks)):
+                tasks = [dataclasses.replace(t, draw_figures=True) for t in tasks]
+                todo = sorted(todo + redraw)
     n_known = len(tasks) - len(todo)
     if progress and n_known:
         progress(n_known, len(tasks))
@@ -528,11 +676,17 @@ def run_campaign(manifest_path, out_dir, *, workers=None, scheduler=None, progre
     files = {k: v for k, v in files.items() if not k.startswith("candidate:")}
     if report:
         path = os.path.join(out_dir, "report.html")
-        if stored.get("report") != key or not os.path.isfile(path):
+        report_key = hashlib.sha256(f"{key}:{_figure_style()}".encode()).hexdigest()
+        if stored.get("report") != report_key or not os.path.isfile(path):
             from .report.campaign_report import write_campaign_report
 
-            write_campaign_report(path, manifest, result)
-            stored["report"] = key
+            images = {}
+            for t, o in zip(tasks, result.outcomes):
+                found = None if o.status == "failed" else _read_figures(t)
+                if found is not None:
+                    images[t.run_path] = found
+            write_campaign_report(path, manifest, result, run_images=images)
+            stored["report"] = report_key
             _save_outputs_key(out_dir, stored)  # after the report: a kill between re-renders
         files["report_html"] = path
     return dataclasses.replace(result, files=files)

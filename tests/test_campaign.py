@@ -14,6 +14,7 @@ import csv
 import json
 import math
 import os
+import re
 import shutil
 import signal
 import subprocess
@@ -214,6 +215,7 @@ KILL_SCRIPT = textwrap.dedent(r'''
     import diffkit.io.store as S
 
     manifest, out, point, nth = sys.argv[1], sys.argv[2], sys.argv[3], int(sys.argv[4])
+    report = sys.argv[5:] == ["report"]
     calls = [0]
 
     def hit():
@@ -254,7 +256,18 @@ KILL_SCRIPT = textwrap.dedent(r'''
                     os.truncate(f.name, os.path.getsize(f.name) // 2)
                     die()
         C.atomic_write = half
-    C.run_campaign(manifest, out, workers=1, report=False)
+    elif point == "during_figure_write":  # the nth run's figure file half written
+        orig = C.atomic_write
+        @contextlib.contextmanager
+        def half(path, *a, **k):
+            with orig(path, *a, **k) as f:
+                yield f
+                if path.endswith(".figures.jsonl") and hit():
+                    f.flush()
+                    os.truncate(f.name, os.path.getsize(f.name) // 2)
+                    die()
+        C.atomic_write = half
+    C.run_campaign(manifest, out, workers=1, report=report)
     print("finished")
 ''')
 
@@ -424,7 +437,7 @@ def test_process_pool_matches_serial(base, tmp_path, capsys):
 
 
 @pytest.mark.slow
-def test_dask_local_cluster_matches_serial(base, tmp_path):
+def test_dask_local_cluster_matches_serial(base, reported, tmp_path):
     distributed = pytest.importorskip("dask.distributed")
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=None) as cluster, \
@@ -433,11 +446,15 @@ def test_dask_local_cluster_matches_serial(base, tmp_path):
         res = run_campaign(base["manifest"], out1, scheduler=client, report=False)
         assert set(statuses(res).values()) == {"done"}
         assert canonical(out1, base["root"]) == base["canonical"]
-        # the same by address, as `--scheduler tcp://...` does
+        # the same by address, as `--scheduler tcp://...` does; with the report, whose run
+        # figures the Dask workers draw
         res = run_campaign(base["manifest"], out2, scheduler=cluster.scheduler_address,
-                           report=False)
+                           report=True)
         assert set(statuses(res).values()) == {"done"}
         assert canonical(out2, base["root"]) == base["canonical"]
+        assert len(_figure_files(out2)) == len(res.outcomes)
+        assert _report_text(os.path.join(out2, "report.html"), out2,
+                            base["root"]) == reported["text"]
         assert len(client.scheduler_info()["workers"]) == 2
 
 
@@ -581,3 +598,150 @@ def test_outputs_rank_candidates_with_bands_and_report(base, work, monkeypatch):
     write_manifest(work["root"], extra={"alpha": "haven_ratio = 0.5"})
     run_campaign(m, out, workers=1, report=True)
     assert all(os.stat(os.path.join(out, p)).st_mtime_ns != t for p, t in stamps.items())
+
+
+# --------------------------------------------------------------------------- report figures
+def _report_text(path, out_dir, data_dir, copied_from=None):
+    """A report's HTML with the output and data folders and every time stamp taken out.
+
+    ``copied_from``: the folder an output folder was copied from (its run files name it).
+    """
+    with open(path, encoding="utf-8") as f:
+        text = f.read()
+    for folder in filter(None, (out_dir, copied_from)):
+        text = text.replace(os.path.abspath(folder), "<OUT>")
+    text = text.replace(os.path.abspath(data_dir), "<DATA>")
+    return re.sub(r"\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d(\.\d+)?([+-]\d\d:\d\d|Z)?", "<TIME>", text)
+
+
+def _embedded(text):
+    """(base64 data, alt text, caption) of every embedded figure, in the page's order."""
+    return re.findall(r'<img src="data:image/png;base64,([^"]+)" alt="([^"]*)"[^>]*>'
+                      r"<figcaption>(.*?)</figcaption>", text)
+
+
+def _figure_files(out):
+    return sorted(os.path.relpath(os.path.join(d, n), out) for d, _, names in os.walk(out)
+                  for n in names if n.endswith(".figures.jsonl"))
+
+
+@pytest.fixture
+def count_drawing(monkeypatch):
+    """Labels of the runs whose standard figures are drawn in this process."""
+    import diffkit.report.html as report_html
+
+    drawn = []
+    real = report_html._run_figures
+
+    def counted(run, d, h):
+        drawn.append(run.label)
+        return real(run, d, h)
+
+    monkeypatch.setattr(report_html, "_run_figures", counted)
+    return drawn
+
+
+@pytest.fixture(scope="module")
+def reported(base, tmp_path_factory):
+    """The reference campaign again, with its report: run figures drawn as the runs finish."""
+    out = str(tmp_path_factory.mktemp("campaign_report"))
+    res = run_campaign(base["manifest"], out, workers=1, report=True)
+    return {"out": out, "result": res,
+            "text": _report_text(os.path.join(out, "report.html"), out, base["root"])}
+
+
+def test_report_from_cached_figures_equals_the_one_drawn_in_the_parent(base, reported, tmp_path,
+                                                                       count_drawing):
+    from diffkit.io.manifest import read_manifest
+    from diffkit.report.campaign_report import write_campaign_report
+
+    out, res = reported["out"], reported["result"]
+    # each run's figures were drawn with it and kept beside its run file; without a report
+    # (the reference campaign) none are drawn
+    assert _figure_files(out) == sorted(os.path.relpath(o.run_path[:-3] + ".figures.jsonl", out)
+                                        for o in res.outcomes)
+    assert _figure_files(base["ref_out"]) == []
+    # the same report with every figure drawn here, in the main process, from the same results
+    parent = str(tmp_path / "parent.html")
+    write_campaign_report(parent, read_manifest(base["manifest"]), res)
+    assert sorted(count_drawing) == sorted(o.label for o in res.outcomes)
+    text = _report_text(parent, out, base["root"])
+    assert text == reported["text"]  # the same figures (to the byte), captions and order
+    figs = _embedded(reported["text"])
+    # per run: MSD, per-axis MSD, hops, convergence; per candidate one Arrhenius plot; overview
+    assert len(figs) == 4 * len(res.outcomes) + len(CANDIDATES) + 1
+    for T in TEMPS_K:  # each candidate has a run of this label
+        assert sum(f"run T{T:g}K, {T:g} K" in alt for _, alt, _ in figs) == 4 * len(CANDIDATES)
+    assert len({data for data, _, _ in figs}) == len(figs)
+
+
+def test_rerun_takes_the_run_figures_from_their_files(base, reported, tmp_path, count_drawing):
+    m, out = base["manifest"], str(tmp_path / "out")
+    shutil.copytree(reported["out"], out)
+    # another output folder: the summaries and the report are written again; the runs and
+    # their figures are reused
+    res = run_campaign(m, out, workers=1, report=True)
+    assert set(statuses(res).values()) == {"reused"}
+    assert count_drawing == []
+    copied = reported["out"]
+    assert _report_text(os.path.join(out, "report.html"), out, base["root"],
+                        copied) == reported["text"]
+
+    # a figure file missing, one damaged, one left by other drawing code: those runs' figures
+    # are drawn again (once each, with the run, not by the report) and kept again
+    runs = os.path.join(out, "runs")
+    os.unlink(os.path.join(runs, "alpha", "T700K.figures.jsonl"))
+    damaged = os.path.join(runs, "beta", "T900K.figures.jsonl")
+    os.truncate(damaged, os.path.getsize(damaged) // 2)
+    old = os.path.join(runs, "beta", "T1100K.figures.jsonl")
+    with open(old, encoding="utf-8") as f:
+        lines = f.readlines()
+    header = json.loads(lines[0])
+    header["figure_key"] = "0" * 64
+    with open(old, "w", encoding="utf-8") as f:
+        f.writelines([json.dumps(header) + "\n"] + lines[1:])
+    os.unlink(os.path.join(out, "report.html"))
+    res = run_campaign(m, out, workers=1, report=True)
+    assert set(statuses(res).values()) == {"reused"}
+    assert sorted(count_drawing) == ["T1100K", "T700K", "T900K"]
+    assert _report_text(os.path.join(out, "report.html"), out, base["root"],
+                        copied) == reported["text"]
+    assert len(_figure_files(out)) == 6
+    del count_drawing[:]
+    res = run_campaign(m, out, workers=1, report=True)  # nothing changed: nothing drawn
+    assert count_drawing == []
+
+
+def test_sigkill_while_caching_figures_then_resume_gives_the_same_report(base, reported,
+                                                                         tmp_path):
+    m, out = base["manifest"], str(tmp_path / "out")
+    proc = subprocess.run([sys.executable, "-c", KILL_SCRIPT, m, out, "during_figure_write", "2",
+                           "report"], capture_output=True, text=True, timeout=180)
+    assert proc.returncode == -signal.SIGKILL, proc.stderr
+    assert "finished" not in proc.stdout
+    # figures are drawn after a run's file is complete: two runs done, the first one's figures
+    # kept, the second one's cut half-way and not taken
+    assert sorted(status_map(m, out).values()) == ["done"] * 2 + ["pending"] * 4
+    assert _figure_files(out) == [os.path.join("runs", "alpha", "T700K.figures.jsonl")]
+    leftovers = [n for _, _, names in os.walk(out) for n in names if n.endswith(".part")]
+    assert len(leftovers) == 1 and leftovers[0].startswith(".T900K.figures.jsonl.")
+    assert not os.path.exists(os.path.join(out, "report.html"))
+
+    res = run_campaign(m, out, workers=1, report=True)
+    assert sorted(statuses(res).values()) == ["done"] * 4 + ["reused"] * 2
+    assert not [n for _, _, names in os.walk(out) for n in names if n.endswith(".part")]
+    assert len(_figure_files(out)) == 6
+    assert _report_text(os.path.join(out, "report.html"), out, base["root"]) == reported["text"]
+    assert canonical(out, base["root"]) == base["canonical"]
+
+
+@pytest.mark.slow
+def test_process_pool_draws_the_run_figures_in_its_workers(base, reported, tmp_path,
+                                                           count_drawing):
+    out = str(tmp_path / "out")
+    res = run_campaign(base["manifest"], out, workers=2, report=True)
+    assert set(statuses(res).values()) == {"done"}
+    assert count_drawing == []  # not in this process: the pool's workers drew them
+    assert len(_figure_files(out)) == 6
+    assert _report_text(os.path.join(out, "report.html"), out, base["root"]) == reported["text"]
+    assert canonical(out, base["root"]) == base["canonical"]

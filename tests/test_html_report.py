@@ -429,3 +429,46 @@ def test_report_in_a_real_browser(browser, campaign, artefacts):
 
 def page_images(path):
     return open(path, encoding="utf-8").read().count('<img src="data:image/')
+
+
+def test_pre_rendered_run_images_give_the_same_report(campaign, monkeypatch):
+    import dataclasses
+
+    import diffkit.report.html as report_html
+    from diffkit.report.html import render_run_images
+
+    report, _, _ = campaign
+    cand = report.candidates[0]
+    drawn = CampaignReport(title="t", candidates=(cand,), created_utc="2026-01-02T03:04:05+00:00")
+    ready = dataclasses.replace(drawn, candidates=(dataclasses.replace(cand, runs=tuple(
+        dataclasses.replace(r, images=render_run_images(r)) for r in cand.runs)),))
+    expected = render_report(drawn)
+    # the images are records of plain data (they are kept in JSON files by campaigns)
+    images = ready.candidates[0].runs[0].images
+    assert json.loads(json.dumps(images)) == list(images)
+    assert [im["alt"] for im in images] == re.findall(
+        r'alt="([^"]*)"', expected)[1:1 + len(images)]  # after the candidate's Arrhenius plot
+
+    def refuse(*_a, **_k):
+        raise AssertionError("run figures drawn although they were given")
+
+    with monkeypatch.context() as mp:
+        mp.setattr(report_html, "_run_figures", refuse)
+        assert render_report(ready) == expected  # the same page to the byte, nothing drawn
+        stub = {"format": "png", "dpi": 110.0, "caption": "a given figure", "alt": "given",
+                "width": 3, "height": 2, "data_base64": "iVBORw0KGgo="}
+        one = dataclasses.replace(ready, candidates=(dataclasses.replace(cand, runs=(
+            dataclasses.replace(cand.runs[0], images=(stub,)),)),))
+        text = render_report(one)
+        assert 'src="data:image/png;base64,iVBORw0KGgo=" alt="given" width="3" height="2"' in text
+        assert "<figcaption>a given figure</figcaption>" in text
+    # made for another format or resolution, or not base64: drawn again as without them
+    assert render_report(ready, dpi=80) == render_report(drawn, dpi=80)
+    svg = render_report(ready, image_format="svg")
+    assert "data:image/png" not in svg and svg == render_report(drawn, image_format="svg")
+    bad = dict(images[0], data_base64='x"><script>alert(3)</script>')
+    spoilt = dataclasses.replace(ready, candidates=(dataclasses.replace(cand, runs=(
+        dataclasses.replace(cand.runs[0], images=(bad,) + tuple(images[1:])),) + cand.runs[1:]),))
+    assert render_report(spoilt) == expected
+    with pytest.raises(UsageError):
+        render_run_images("not a run")

@@ -4,11 +4,22 @@ from __future__ import annotations
 
 import os
 
-from .html import CampaignReport, CandidateSection, RunSection, write_report
+from .html import CampaignReport, CandidateSection, RunSection, render_run_images, write_report
 
-__all__ = ["write_campaign_report", "write_candidate_report"]
+__all__ = ["write_campaign_report", "write_candidate_report", "campaign_run_section",
+           "render_campaign_run_images", "IMAGE_FORMAT", "IMAGE_DPI"]
 
 _RUN_FIGURE_LIMIT = 60  # beyond this many runs, per-run figures are left out (speed)
+
+#: How the campaign report embeds figures; the run figures drawn ahead of time in the
+#: workers (:func:`render_campaign_run_images`) are made the same way.
+IMAGE_FORMAT = "png"
+IMAGE_DPI = 110
+
+
+def run_figures_wanted(n_runs):
+    """True when the report of a campaign of ``n_runs`` runs shows per-run figures."""
+    return n_runs <= _RUN_FIGURE_LIMIT
 
 
 def _settings_view(settings):
@@ -23,10 +34,58 @@ def _settings_view(settings):
     return out
 
 
-def write_campaign_report(path, manifest, result):
-    """Write the campaign's self-contained HTML report; returns the path."""
+def campaign_run_section(label, results, *, run_file=None, images=None):
+    """The report section of one analysed campaign run.
+
+    Parameters
+    ----------
+    label : str
+        The run's label in the campaign.
+    results : dict
+        The run's stored results (``run``, ``assessment``, ``msd_points``, ``provenance``).
+    run_file : str, optional
+        The run file's path as the report shows it.
+    images : tuple of dict, optional
+        Its figures drawn ahead of time (:func:`render_campaign_run_images`).
+
+    Returns
+    -------
+    RunSection
+    """
+    facts = dict(results.get("run", {}))
+    if run_file is not None:
+        facts["run file"] = run_file
+    return RunSection(label=label, temperature_K=facts.get("temperature_K"),
+                      msd=results.get("msd_points"), assessment=results.get("assessment"),
+                      facts=facts, provenance=results.get("provenance", {}), images=images)
+
+
+def render_campaign_run_images(label, results):
+    """Draw one campaign run's report figures now (in the worker that analysed it).
+
+    The figures, captions and order are those :func:`write_campaign_report`
+    would draw for the run; the records are JSON-ready (see
+    :func:`diffkit.report.html.render_run_images`).
+    """
+    return render_run_images(campaign_run_section(label, results), image_format=IMAGE_FORMAT,
+                             dpi=IMAGE_DPI)
+
+
+def write_campaign_report(path, manifest, result, *, run_images=None):
+    """Write the campaign's self-contained HTML report; returns the path.
+
+    Parameters
+    ----------
+    path : str
+    manifest : Manifest
+    result : CampaignResult
+    run_images : mapping of str to tuple of dict, optional
+        Figures drawn ahead of time, by run file path; a run without them (or
+        with images made differently) has its figures drawn here.
+    """
     from .tables import campaign_rows
 
+    run_images = run_images or {}
     order = [r["candidate"] for r in campaign_rows(result)]
     sections = []
     for name in order:
@@ -35,12 +94,9 @@ def write_campaign_report(path, manifest, result):
             if o.status == "failed" or not o.results:
                 runs.append(RunSection(label=o.label, failure=o.reason or "failed"))
                 continue
-            res = o.results
-            facts = dict(res.get("run", {}))
-            facts["run file"] = os.path.relpath(o.run_path, result.out_dir)
-            runs.append(RunSection(label=o.label, temperature_K=facts.get("temperature_K"),
-                                   msd=res.get("msd_points"), assessment=res.get("assessment"),
-                                   facts=facts, provenance=res.get("provenance", {})))
+            runs.append(campaign_run_section(
+                o.label, o.results, run_file=os.path.relpath(o.run_path, result.out_dir),
+                images=run_images.get(o.run_path)))
         notes = tuple(result.candidate_flags.get(name, ()))
         sections.append(CandidateSection(name=name, summary=result.summaries.get(name),
                                          runs=tuple(runs), notes=notes))
@@ -52,7 +108,8 @@ def write_campaign_report(path, manifest, result):
         provenance={"manifest": manifest.path, "output folder": result.out_dir,
                     "diffkit version": __version__})
     n_runs = len(result.outcomes)
-    return write_report(path, report, run_figures=n_runs <= _RUN_FIGURE_LIMIT)
+    return write_report(path, report, image_format=IMAGE_FORMAT, dpi=IMAGE_DPI,
+                        run_figures=run_figures_wanted(n_runs))
 
 
 def write_candidate_report(path, name, summary, runs):

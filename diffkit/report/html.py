@@ -20,7 +20,10 @@ Input is plain data, filled by whoever ran the analysis (``diffkit campaign``,
 
 Results may be the result objects or their ``to_dict()`` forms. Nothing here
 computes physics: numbers are formatted, figures drawn by
-:mod:`diffkit.report.plots`.
+:mod:`diffkit.report.plots`. A run's standard figures can also be drawn ahead
+of time, elsewhere (:func:`render_run_images`; campaigns do it in the worker
+that analysed the run) and handed in as ``RunSection(images=...)``: the page
+is then the same, without drawing them again.
 """
 
 from __future__ import annotations
@@ -28,6 +31,7 @@ from __future__ import annotations
 import base64
 import html
 import math
+import re
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
@@ -38,7 +42,7 @@ from ..units import MS_PER_S
 from . import plots
 
 __all__ = ["RunSection", "CandidateSection", "CampaignReport", "render_report", "write_report",
-           "REPORT_CAUTIONS"]
+           "render_run_images", "REPORT_CAUTIONS"]
 
 #: The plain-words cautions every report states in its summary.
 REPORT_CAUTIONS = (
@@ -84,6 +88,12 @@ class RunSection:
         Further figures to show with the run.
     failure : str
         For a run that could not be analysed: its one-line reason.
+    images : sequence of mapping, optional
+        The run's standard figures already drawn and encoded by
+        :func:`render_run_images` (for instance in the worker process that
+        analysed the run, and cached beside its run file). They are embedded
+        as they are when they were made in the report's image format and
+        resolution; otherwise, or when None, the figures are drawn here.
     """
 
     label: str
@@ -99,6 +109,7 @@ class RunSection:
     provenance: Mapping = field(default_factory=dict)
     figures: tuple = ()
     failure: str = ""
+    images: tuple | None = None
 
 
 @dataclass(frozen=True)
@@ -280,6 +291,9 @@ def _tier_badge(tier):
 
 
 # =========================================================================== figures
+_BASE64 = re.compile(r"[A-Za-z0-9+/]+={0,2}")
+
+
 class _FigureEncoder:
     def __init__(self, image_format, dpi):
         if image_format not in ("png", "svg"):
@@ -287,17 +301,43 @@ class _FigureEncoder:
         self.fmt = image_format
         self.dpi = float(dpi)
         self.count = 0
+        self.run_figures = True
 
-    def html(self, fig, caption, alt):
+    def encode(self, fig, caption, alt):
+        """One figure as an image record (plain data, see :func:`render_run_images`)."""
         data = plots.figure_bytes(fig, self.fmt, dpi=self.dpi)
         w_in, h_in = fig.get_size_inches()
-        width, height = int(round(w_in * self.dpi)), int(round(h_in * self.dpi))
-        mime = "image/png" if self.fmt == "png" else "image/svg+xml"
-        b64 = base64.b64encode(data).decode("ascii")
+        return {"format": self.fmt, "dpi": self.dpi, "caption": caption, "alt": alt,
+                "width": int(round(w_in * self.dpi)), "height": int(round(h_in * self.dpi)),
+                "data_base64": base64.b64encode(data).decode("ascii")}
+
+    def failed(self, error):
+        """The record of a figure that could not be drawn."""
+        return {"format": self.fmt, "dpi": self.dpi, "error": str(error)}
+
+    def accepts(self, images):
+        """True when pre-rendered ``images`` were made in this report's format and resolution."""
+        try:
+            return all(isinstance(im, Mapping) and im.get("format") == self.fmt
+                       and float(im.get("dpi")) == self.dpi
+                       and ("error" in im or _BASE64.fullmatch(im.get("data_base64") or ""))
+                       for im in images)
+        except (TypeError, ValueError):
+            return False
+
+    def embed(self, image):
+        """The HTML of one image record."""
+        if "error" in image:
+            return f'<p class="failure">{_e(image["error"])}</p>'
+        mime = "image/png" if image["format"] == "png" else "image/svg+xml"
         self.count += 1
-        return (f'<figure class="plot"><img src="data:{mime};base64,{b64}" alt="{_e(alt)}" '
-                f'width="{width}" height="{height}" loading="eager">'
-                f"<figcaption>{caption}</figcaption></figure>")
+        return (f'<figure class="plot"><img src="data:{mime};base64,{image["data_base64"]}" '
+                f'alt="{_e(image["alt"])}" width="{int(image["width"])}" '
+                f'height="{int(image["height"])}" loading="eager">'
+                f'<figcaption>{image["caption"]}</figcaption></figure>')
+
+    def html(self, fig, caption, alt):
+        return self.embed(self.encode(fig, caption, alt))
 
 
 def _try_figure(make, *args, **kwargs):
@@ -694,6 +734,40 @@ def _run_figures(run, d, h):
     return figs
 
 
+def _encode_run_figures(run, enc):
+    out = []
+    for fig, err, cap, alt in _run_figures(run, _diffusion_of(run), _hops_of(run)):
+        out.append(enc.failed(err) if fig is None else enc.encode(fig, cap, alt))
+    return out
+
+
+def render_run_images(run, *, image_format="png", dpi=110):
+    """Draw and encode the standard figures of one run, ready to embed later.
+
+    What :func:`render_report` would draw for this run (MSD, per-axis MSD,
+    hops, convergence, host MSD; same captions and order), done ahead of time
+    — e.g. in the worker process that analysed the run — so that the report
+    can embed them through ``RunSection(images=...)`` without drawing.
+
+    Parameters
+    ----------
+    run : RunSection
+    image_format : {"png", "svg"}
+    dpi : float
+        Resolution of PNG images (also sets the width and height attributes).
+
+    Returns
+    -------
+    tuple of dict
+        One JSON-ready record per figure: ``format``, ``dpi``, ``caption``
+        (HTML), ``alt``, ``width`` and ``height`` (pixels) and ``data_base64``;
+        or ``format``, ``dpi`` and ``error`` for a figure that could not be drawn.
+    """
+    if not isinstance(run, RunSection):
+        raise UsageError(f"render_run_images needs a RunSection, got {type(run).__name__}")
+    return tuple(_encode_run_figures(run, _FigureEncoder(image_format, dpi)))
+
+
 def _run_section(run, enc, cand_index, run_index):
     anchor = f"cand-{cand_index}-run-{run_index}"
     d, h = _diffusion_of(run), _hops_of(run)
@@ -724,16 +798,15 @@ def _run_section(run, enc, cand_index, run_index):
     if notes:
         parts.append('<details class="notes"><summary>Notes from the analysis</summary>'
                      + _messages(notes) + "</details>")
-    figs = _run_figures(run, d, h) if enc.run_figures else []
-    for cap, fig in run.figures:
-        figs.append((fig, None, _e(cap), str(cap)))
-    if figs:
-        cells = []
-        for fig, err, cap, alt in figs:
-            if fig is None:
-                cells.append(f'<p class="failure">{_e(err)}</p>')
-            else:
-                cells.append(enc.html(fig, cap, alt))
+    if not enc.run_figures:
+        images = []
+    elif run.images is not None and enc.accepts(run.images):
+        images = list(run.images)  # drawn before, e.g. by the worker that analysed the run
+    else:
+        images = _encode_run_figures(run, enc)
+    cells = [enc.embed(im) for im in images]
+    cells += [enc.html(fig, _e(cap), str(cap)) for cap, fig in run.figures]
+    if cells:
         parts.append('<div class="figures">' + "".join(cells) + "</div>")
     if run.provenance:
         parts.append('<details class="prov"><summary>Provenance: files, hashes, versions, '
