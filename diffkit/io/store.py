@@ -57,7 +57,13 @@ def _as_slice(idx):
 
 
 class _RunWriter:
-    """Write frames to a new run file as they come (bounded memory)."""
+    """Write frames to a new run file as they come (bounded memory).
+
+    Open the file with ``rdcc_nbytes=0``: positions are written in whole HDF5
+    chunks, so the chunk cache gains nothing, and with it HDF5's memory grew
+    by ~7 MB per small per-frame dataset over a long run before levelling off
+    (measured: 48 -> 55 MB from 20,000 to 320,000 frames; flat without it).
+    """
 
     def __init__(self, h5, species, masses, has_velocities, compression, buffer_MB=16.0):
         self.h5 = h5
@@ -185,7 +191,7 @@ def save_trajectory(traj, path, *, compression=None):
     """
     h5py = _h5py()
     with atomic_path(path) as tmp:
-        with h5py.File(tmp, "w") as h5:
+        with h5py.File(tmp, "w", rdcc_nbytes=0) as h5:  # no chunk cache (_RunWriter)
             w = _RunWriter(h5, list(traj.species), traj.masses, traj.has_velocities, compression)
             for a in range(0, traj.n_frames, w.fchunk * 8):
                 b = min(traj.n_frames, a + w.fchunk * 8)
@@ -223,7 +229,7 @@ def ingest(paths, out_path, options=None, *, compression=None, progress=None):
     h5py = _h5py()
     asm = RunAssembler(paths, options)
     with atomic_path(out_path) as tmp:
-        with h5py.File(tmp, "w") as h5:
+        with h5py.File(tmp, "w", rdcc_nbytes=0) as h5:  # no chunk cache (_RunWriter)
             writer = None
             for times, cells, pos, vel in asm.chunks():
                 if writer is None:
