@@ -171,6 +171,19 @@ def _analysis_settings(cand, run):
     }
 
 
+def _load_manifest(manifest_path):
+    """Read the manifest and check the choices only the analysis knows (the diffusion method)."""
+    from .diffusion import METHODS
+
+    manifest = read_manifest(manifest_path)
+    for cand in manifest.candidates:
+        method = cand.settings.get("method")
+        if method is not None and method not in METHODS:
+            raise InputError(f"{manifest.path}: candidate {cand.name!r}: method = {method!r} is "
+                             f"not one of {', '.join(METHODS)}")
+    return manifest
+
+
 def _read_options_dict(run):
     d = dataclasses.asdict(run.read_options())
     if d.get("type_map"):
@@ -630,7 +643,7 @@ def run_campaign(manifest_path, out_dir, *, workers=None, scheduler=None, progre
     """
     if workers is not None and workers < 1:
         raise UsageError(f"--workers must be at least 1, got {workers}")
-    manifest = read_manifest(manifest_path)
+    manifest = _load_manifest(manifest_path)
     out_dir = os.path.abspath(out_dir)
     os.makedirs(out_dir, exist_ok=True)
     _remove_stale_temporaries(out_dir)
@@ -786,7 +799,7 @@ def campaign_status(manifest_path, out_dir):
     list of dict
         One per run: candidate, label, status, reason (for failed runs).
     """
-    manifest = read_manifest(manifest_path)
+    manifest = _load_manifest(manifest_path)
     out_dir = os.path.abspath(out_dir)
     cache = _load_hash_cache(out_dir)
     rows = []

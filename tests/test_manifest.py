@@ -42,3 +42,16 @@ def test_choices_are_normalised(tmp_path):
     c = m.candidates[0]
     assert c.settings["reference"] == "none" and c.settings["method"] == "gls"
     assert c.runs[0].format == "xdatcar" and c.runs[0].lammps_units == "metal"
+
+
+def test_unknown_diffusion_method_stops_the_campaign_before_any_run(tmp_path):
+    from diffkit.campaign import run_campaign
+
+    path = tmp_path / "m.toml"
+    path.write_text('[settings]\nmethod = "magic"\n[[candidates]]\nname = "a"\n' + RUN,
+                    encoding="utf-8")
+    with pytest.raises(InputError) as info:
+        run_campaign(str(path), str(tmp_path / "out"), workers=1)
+    msg = str(info.value)
+    assert msg.startswith(str(path)) and "'a'" in msg and "magic" in msg and "gls" in msg
+    assert not (tmp_path / "out" / "runs").exists()
