@@ -35,6 +35,18 @@ Two methods, both streaming over blocks of atoms (:meth:`Trajectory.iter_atom_bl
 
 Automatic settings (each reported in the result):
 
+* Vibration *span* (``vibration_span_frames``): the lag from which robust
+  differences of positions that many frames apart stop growing. It is the
+  shortest lag tried (≈ 0.05 ps) for vibration independent from frame to
+  frame; for vibration correlated in time (MD saved every few fs) it is about
+  half a period or more, and then the scouting blocks span it, the provisional
+  threshold uses the plateau rms, the one-frame rules count separate
+  excursions rather than frames (Rice's upcrossing rate, with ρ1 =
+  ``vibration_step_correlation``), a stay counts as L/span independent frames,
+  the tracker's first resting place averages over 4 spans, and the site
+  method walks a hop back up to 4 spans. Lags that grow because ions hop
+  (many steps too large for vibration within a span) are not a span.
+
 * ``threshold_A`` θ = ``threshold_fraction`` (0.6) × the typical shortest
   distance between distinct resting places seen. A coarse scouting pass
   (paths block-medianed over ~0.1 ps, followed with a provisional threshold of
@@ -90,6 +102,20 @@ _SCOUT_Z = 4.0
 #: Scouting block length, ps (about one vibrational period), and minimum in frames.
 _SCOUT_BLOCK_PS = 0.1
 _SCOUT_BLOCK_MIN = 4
+#: Vibration span: lag differences whose variance still rises by more than this
+#: factor when the lag doubles are taken as still correlated.
+_SPAN_RISE = 1.15
+#: A span is vibration only where an ion makes fewer steps too large for
+#: vibration than this within it (else the lags grow because of hops).
+_SPAN_MAX_HOPS = 0.5
+#: A step between consecutive frames is too large for vibration beyond this many
+#: per-axis rms of such steps (3-D length).
+_BIG_STEP_Z = 8.0
+#: Ions and frames of the first block used to measure the vibration span.
+_SPAN_SAMPLE_IONS = 64
+_SPAN_SAMPLE_FRAMES = 50_000
+#: Longest lag tried for the vibration span, frames (and at most 1/16 of the run).
+_SPAN_MAX_LAG = 1024
 #: Running-median windows tried, finest first.
 _WINDOWS = (1, 3, 5, 7, 9, 13, 17, 25, 37, 51, 75, 101)
 #: Expected hops caused by vibration alone over the whole run that the automatic
@@ -106,6 +132,11 @@ _FALSE_HOP_SHARE = 0.01
 _MIN_CORE_SIGMAS = 1.5
 #: Sites: a hop moves back over at most this many frames already nearer the new site.
 _WALK_BACK_FRAMES = 8
+#: ... and at least this many vibration spans (correlated vibration, see _vibration_span).
+_WALK_BACK_SPANS = 4
+#: Correlated vibration: the tracker's first resting place of each ion averages
+#: over at least this many vibration spans (about two periods).
+_FIRST_ANCHOR_SPANS = 4
 #: The resting place is the mean of at most this many latest frames of the stay.
 _ANCHOR_MEMORY = 200
 #: Ions and frames used to measure the smoothed-path noise.
@@ -236,6 +267,16 @@ class HopSummary:
         the automatic one-frame rules: 0.02, or 1 % of the hops seen while
         scouting where that is more (the sites' core radius and
         ``excursion_radius_A`` are derived from it).
+    vibration_span_frames : int, frames
+        How long the vibration stays correlated: the lag from which differences
+        of positions that many frames apart no longer grow (the shortest lag
+        tried, ≈ 0.05 ps and at least 1 frame, for vibration that is
+        uncorrelated from frame to frame). The scouting blocks are at least
+        this long.
+    vibration_step_correlation : float
+        ρ1, the correlation of the vibration between consecutive frames
+        (0 when the span shows none). Where positive, the false-hop budgets of
+        the one-frame rules count excursions rather than frames.
     """
 
     species: str
@@ -269,6 +310,8 @@ class HopSummary:
     message: str = ""
     excursion_radius_A: float = float("nan")
     false_hop_allowance: float = float("nan")
+    vibration_span_frames: int = 1
+    vibration_step_correlation: float = 0.0
 
     def to_dict(self):
         """Plain JSON-ready dict (arrays become lists, NaN becomes None)."""
@@ -381,12 +424,15 @@ def _typical_shortest(lengths):
 
 
 # =========================================================================== the tracker
-def _follow_resting_places(m, thr, settle, lookahead=32):
+def _follow_resting_places(m, thr, settle, lookahead=32, min_anchor=1):
     """Find hops by following each ion's resting place; all ions of a block at once.
 
     The resting place at frame t is the mean of the smoothed positions of the
     current stay over its last ``_ANCHOR_MEMORY`` frames before t (cumulative
-    sums make it available at any frame). A hop happens at the first frame t
+    sums make it available at any frame); in the run's first ``min_anchor``
+    frames, the mean of those frames (with vibration correlated over a span,
+    the first frames share one excursion and are no resting place on their
+    own; later stays start from a hop, which the tracker must not blur). A hop happens at the first frame t
     where the smoothed position and the next ``settle − 1`` ones are farther
     than ``thr`` from it and within ``thr`` of the position at t. Each step
     looks ``lookahead`` frames ahead of every ion for its next hop, so the
@@ -399,6 +445,8 @@ def _follow_resting_places(m, thr, settle, lookahead=32):
     thr : float, Å
     settle : int
     lookahead : int
+    min_anchor : int
+        Frames a resting place averages over at least (1: none).
 
     Returns
     -------
@@ -423,10 +471,14 @@ def _follow_resting_places(m, thr, settle, lookahead=32):
         T = cur[active, None] + steps[None, :]                       # (ka, L)
         inside = T < limit
         np.minimum(T, max(limit - 1, 1), out=T)
-        lo = np.maximum(start[active, None], T - mem)
         base_m = (active * n)[:, None]
         base_s = (active * (n + 1))[:, None]
-        A = (Sk[base_s + T] - Sk[base_s + lo]) / (T - lo)[..., None]
+        if min_anchor > 1:   # the first stay's place: the mean of at least min_anchor frames
+            up = np.where(start[active, None] == 0, np.maximum(T, min(min_anchor, n)), T)
+        else:
+            up = T
+        lo = np.maximum(start[active, None], up - mem)
+        A = (Sk[base_s + up] - Sk[base_s + lo]) / (up - lo)[..., None]
         mt = mk[base_m + T]
         d = mt - A
         far = np.einsum("ali,ali->al", d, d) > thr2
@@ -512,13 +564,46 @@ def _hop_rows(first, ions):
 
 
 # =========================================================================== one-frame stays
-def _excursion_radius(n_obs, noise_sd, allowance):
+def _entry_share(rho1, u):
+    """Separate excursions beyond u σ per frame spent beyond it, for correlated vibration.
+
+    A stationary Gaussian process whose consecutive frames have correlation
+    ρ1 crosses zero upwards arccos(ρ1) / (2π) times per frame (the sign-change
+    probability of a bivariate normal pair is arccos(ρ1)/π; Sheppard's
+    formula), and a high level u σ about exp(−u²/2) times as often (Rice's
+    formula for the rate of upcrossings; Rice, Bell Syst. Tech. J. 24, 46
+    (1945), from memory). Frames spent beyond u σ number P(g > u) ≈
+    φ(u)/u per frame, so each excursion lasts 1/s frames with
+    s = u · arccos(ρ1) / √(2π), capped at 1 (one excursion per frame at most:
+    uncorrelated vibration, or any level at which an excursion lasts one frame).
+
+    Parameters
+    ----------
+    rho1 : float
+        Correlation of the vibration between consecutive frames.
+    u : float or ndarray
+        Level, in vibration rms.
+
+    Returns
+    -------
+    float or ndarray, in (0, 1]
+    """
+    rate = math.acos(min(max(rho1, -1.0), 1.0)) / math.sqrt(2.0 * math.pi)
+    share = np.asarray(u, float) * rate
+    out = np.clip(share, 1e-12, 1.0)
+    return float(out) if out.ndim == 0 else out
+
+
+def _excursion_radius(n_obs, noise_sd, allowance, rho1=0.0):
     """Distance from every resting place beyond which one raw frame is taken as elsewhere.
 
     Vibration alone puts a frame farther than R from its resting place with
     probability P(|g| > R / σ) (g a 3-vector of unit Gaussians); each such frame
     taken as a stay makes two hops (out and back), so R solves
-    2 · n_obs · P(|g| > R / σ) = ``allowance``.
+    2 · n_obs · P(|g| > R / σ) = ``allowance``. With vibration correlated from
+    frame to frame (ρ1 > 0) the frames beyond R come in excursions of several
+    frames, and only the excursions count: the left side is multiplied by
+    :func:`_entry_share` (1 for uncorrelated vibration).
 
     Parameters
     ----------
@@ -528,6 +613,8 @@ def _excursion_radius(n_obs, noise_sd, allowance):
         Per-axis vibration rms of the raw positions.
     allowance : float
         Expected false hops accepted over the run.
+    rho1 : float
+        Correlation of the vibration between consecutive frames (0: none).
 
     Returns
     -------
@@ -536,17 +623,30 @@ def _excursion_radius(n_obs, noise_sd, allowance):
     if not noise_sd > 0:
         return 0.0
     p = min(0.5, allowance / (2.0 * max(n_obs, 1)))
-    return float(_stats.chi.isf(p, 3)) * float(noise_sd)
+    u = float(_stats.chi.isf(p, 3))
+    if rho1 > 0 and _entry_share(rho1, u) < 1.0:
+        # correlated vibration: fewer separate excursions than frames beyond R;
+        # 2 n_obs s(u) P(|g| > u) decreases with u above √2, so bisect
+        def excess(v):
+            return 2.0 * n_obs * _entry_share(rho1, v) * _chi3_tail(v) - allowance
+        lo, hi = math.sqrt(2.0), u
+        if excess(lo) > 0:
+            for _ in range(50):
+                mid = 0.5 * (lo + hi)
+                lo, hi = (mid, hi) if excess(mid) > 0 else (lo, mid)
+            u = hi
+    return u * float(noise_sd)
 
 
-def _refine_stays(pos, frames, ions, centres, first, lengths, sid, thr, reach, delta):
+def _refine_stays(pos, frames, ions, centres, first, lengths, sid, thr, reach, delta, span=1):
     """Re-time the tracker's hops on the raw positions and recover the stays it merged.
 
     Three steps, all ions of a block at once:
 
     1. **Stays that stand out.** A stay of L frames is kept when the mean of
-       its raw positions lies farther than ``reach``/√L from the places before
-       and after it (the one-frame rule below, applied to a mean); otherwise it
+       its raw positions lies farther than ``reach``/√(L/span) (``reach`` at
+       most) from the places before and after it (the one-frame rule below,
+       applied to a mean of L/span independent samples); otherwise it
        joins the neighbour it is close to. Consecutive stays whose centres are within
        ``thr`` of each other are then one place (the tracker can leave a place
        for a stay too short to hold its resting place and come back).
@@ -583,6 +683,8 @@ def _refine_stays(pos, frames, ions, centres, first, lengths, sid, thr, reach, d
         Elsewhere radius R (:func:`_excursion_radius`).
     delta : int
         Largest shift of a hop, frames.
+    span : int
+        Frames over which vibration stays correlated (1: uncorrelated).
 
     Returns
     -------
@@ -606,7 +708,8 @@ def _refine_stays(pos, frames, ions, centres, first, lengths, sid, thr, reach, d
                        axis=1) / cnt[:, None]
         # a stay of L frames stands out when its raw mean lies farther than R/√L
         # (the excursion radius of one frame, scaled to a mean) from both neighbours
-        lim2 = reach2 / cnt
+        # frames within one vibration span are not independent: L/span of them count
+        lim2 = reach2 / np.maximum(cnt / float(span), 1.0)
         has_before = np.ones(n_st, dtype=bool)
         has_before[first] = False
         has_after = np.ones(n_st, dtype=bool)
@@ -737,6 +840,85 @@ def _lag_sigma(x, lag, max_values=300_000):
     return float(1.4826 * np.median(d) / math.sqrt(2.0)), int(d.size)
 
 
+def _vibration_span(x, lag0, max_lag):
+    """How long vibration stays correlated, and its rms, from robust lag differences.
+
+    For stationary vibration the per-axis variance of differences ``L`` frames
+    apart is v(L) = 2σ²(1 − ρ(L)) (ρ the autocorrelation): it rises with L
+    while the motion is correlated and levels off at 2σ² once it is not. The
+    lags tried are ``lag0`` · 1, 2, 4, ... ≤ ``max_lag``; the *span* is the first
+    lag after which v rises by less than ``_SPAN_RISE`` (so hops, which make v
+    grow slowly at long lags, do not stretch it; where v still rises at the
+    longest lag no plateau was seen and the span is ``lag0``), and σ is the largest
+    √(v/2) up to the span (an oscillator overshoots 2σ² near half a period,
+    so σ may come out up to ≈ 1.3 × too large: safe for a provisional
+    threshold). Uncorrelated vibration gives span = ``lag0`` and the
+    σ of :func:`_lag_sigma` at ``lag0``.
+
+    Parameters
+    ----------
+    x : (n_frames, k, 3) float, Å
+    lag0 : int
+        Shortest lag, frames.
+    max_lag : int
+        Longest lag tried, frames.
+
+    Returns
+    -------
+    span : int, frames
+    sigma : float, Å
+    profile : list of (lag, sigma_lag)
+    """
+    lags = [int(lag0)]
+    while 2 * lags[-1] <= max_lag:
+        lags.append(2 * lags[-1])
+    # time-strided pairs (≤ 300,000 values per lag), computed only up to the plateau
+    stride = max(1, int(x.shape[0] * x.shape[1] * 3 // 300_000))
+    sig = []
+    k = 0
+    plateau = False
+    for j, L in enumerate(lags):
+        if x.shape[0] <= L:
+            break
+        d = np.abs(x[L::stride] - x[:-L:stride]).ravel()
+        sig.append(float(1.4826 * np.median(d) / math.sqrt(2.0)))
+        if j and sig[j] ** 2 <= _SPAN_RISE * sig[j - 1] ** 2:
+            plateau = True
+            break
+        k = j
+    if not sig:
+        return int(lag0), 0.0, []
+    if not plateau:          # still rising at the longest lag: no plateau seen
+        k = 0
+    return lags[k], float(max(sig[:k + 1])), list(zip(lags, sig))
+
+
+def _steps_per_span(x, sig_step, span):
+    """Expected steps too large for vibration that one ion makes within ``span`` frames.
+
+    A step between consecutive frames is too large when its length exceeds
+    ``_BIG_STEP_Z`` × √2 × ``sig_step`` (the per-axis rms of the step is √2 σ_1
+    for vibration alone; Gaussian steps go that far with probability < 1e-12).
+
+    Parameters
+    ----------
+    x : (n_frames, k, 3) float, Å
+    sig_step : float, Å
+        Robust per-axis σ from differences one frame apart (:func:`_lag_sigma`).
+    span : int, frames
+
+    Returns
+    -------
+    float
+    """
+    if x.shape[0] < 2:
+        return 0.0
+    d = np.diff(x, axis=0)
+    lim = _BIG_STEP_Z * math.sqrt(2.0) * max(sig_step, 1e-6)
+    big = np.einsum("tki,tki->tk", d, d) > lim * lim
+    return float(np.mean(big)) * span
+
+
 def _scout_block(pos, b, lag, scout):
     """Coarse pass over one block: block medians followed with a vibration-based threshold."""
     step = np.diff(pos, axis=0)
@@ -744,7 +926,14 @@ def _scout_block(pos, b, lag, scout):
         scout.max_step = max(scout.max_step,
                              float(np.sqrt(np.einsum("tki,tki->tk", step, step).max())))
     del step
-    sig, cnt = _lag_sigma(pos, lag)
+    if isinstance(lag, tuple):       # correlated vibration: the plateau rms up to the span
+        lags = [lag[0]]
+        while 2 * lags[-1] <= lag[1]:
+            lags.append(2 * lags[-1])
+        sig = max(_lag_sigma(pos, L)[0] for L in lags)
+        cnt = pos.size
+    else:
+        sig, cnt = _lag_sigma(pos, lag)
     scout.lag_sigma.append((sig, cnt))
     thr0 = max(_SCOUT_Z * sig, 1e-3)
     xd = _block_medians(pos, b)
@@ -1065,7 +1254,7 @@ def _build_sites(stream, cells, sigma, thr, fallback_sep):
     return locator, d_nn, core, neighbour, weight
 
 
-def _core_radius(neighbour_A, weight, noise_sd, n_obs, allowance, r_max):
+def _core_radius(neighbour_A, weight, noise_sd, n_obs, allowance, r_max, rho1=0.0):
     """Largest core radius ≤ ``r_max`` whose false entries stay within ``allowance``.
 
     An ion vibrating about site i (per-axis rms σ) lands inside the core
@@ -1073,7 +1262,10 @@ def _core_radius(neighbour_A, weight, noise_sd, n_obs, allowance, r_max):
     P(|σg − d_ij| < r) = F(r²/σ²; 3, d_ij²/σ²), F the non-central χ² CDF with 3
     degrees of freedom; each such entry makes two hops (there and back). With
     w_i the share of the density at site i, the expected false hops are
-    2 · n_obs · Σ_i w_i Σ_j F(...).
+    2 · n_obs · Σ_i w_i Σ_j F(...). With vibration correlated from frame to
+    frame (ρ1 > 0) each F is multiplied by :func:`_entry_share` at the level
+    (d_ij − r)/σ: frames inside a core come in visits of several frames, and
+    only visits count.
 
     Parameters
     ----------
@@ -1085,6 +1277,8 @@ def _core_radius(neighbour_A, weight, noise_sd, n_obs, allowance, r_max):
     allowance : float
         Expected false hops accepted over the run.
     r_max : float, Å
+    rho1 : float
+        Correlation of the vibration between consecutive frames (0: none).
 
     Returns
     -------
@@ -1102,6 +1296,8 @@ def _core_radius(neighbour_A, weight, noise_sd, n_obs, allowance, r_max):
 
     def expected(r):
         p = _stats.ncx2.cdf((r / noise_sd) ** 2, 3, uniq ** 2)
+        if rho1 > 0:      # correlated vibration: count entries, not frames inside
+            p = p * _entry_share(rho1, np.maximum(uniq - r / noise_sd, 0.0))
         return 2.0 * n_obs * float(w @ p[inv].sum(axis=1))
 
     e_max = expected(r_max)
@@ -1234,13 +1430,37 @@ def count_hops(traj, species, *, method="displacement", reference=None, threshol
     b = max(1, min(b, n // 8))
     lag = max(1, int(round(0.5 * _SCOUT_BLOCK_PS / dt)))
     scout = _Scout()
+    lag0 = lag
+    span, measured = lag, False
     for _, pos in stream():
+        if not measured:
+            measured = True
+            # how long vibration stays correlated (frames), from the first block's ions
+            xs = pos[:_SPAN_SAMPLE_FRAMES, :_SPAN_SAMPLE_IONS]
+            span, _, span_profile = _vibration_span(
+                xs, lag, max(lag, min(_SPAN_MAX_LAG, n // 16)))
+            sig_step = span_profile[0][1] if lag == 1 and span_profile else \
+                _lag_sigma(xs, 1)[0]
+            if span > lag and _steps_per_span(xs, sig_step, span) > _SPAN_MAX_HOPS:
+                # the lag differences grow because ions hop within a span (diffusion
+                # looks like slow vibration to them): not a vibration span
+                span = lag
+            if span > lag:          # blocks at least one span long; σ from the plateau
+                b = max(1, min(max(b, span), n // 8))
+                lag = (lag, span)
         _scout_block(pos, b, lag, scout)
     counts = sum(c for _, c in scout.lag_sigma)
     sig_lag = (sum(s * c for s, c in scout.lag_sigma) / counts) if counts else 0.0
     thr0 = max(_SCOUT_Z * sig_lag, 1e-3)
     ladder = _NoiseLadder(scout.sample, sig_lag)
     sigma_vib = ladder(1)
+    # correlation of the vibration between consecutive frames (0 unless the span says
+    # it is correlated): v(1) = 2σ²(1 − ρ1)
+    rho1, corr_span = 0.0, 1
+    if span > lag0:
+        corr_span = span
+    if corr_span > 1 and sigma_vib > 0:
+        rho1 = float(np.clip(1.0 - (sig_step / sigma_vib) ** 2, 0.0, 0.999))
     jumps = np.concatenate(scout.jumps) if scout.jumps else np.zeros(0)
     d_min = float("nan")
     basis = ""
@@ -1281,7 +1501,7 @@ def count_hops(traj, species, *, method="displacement", reference=None, threshol
         # the tracker at the finest resolution vibration will not fool (whole-run budget
         # 0.1), then one-frame stays recovered on the raw positions
         w, settle = _choose_resolution(ladder, thr, n_obs, n, w_user, s_user)
-        excursion = _excursion_radius(n_obs, sigma_vib, allowance)
+        excursion = _excursion_radius(n_obs, sigma_vib, allowance, rho1)
         # worth it only where one frame at the nearest other resting place can be
         # told from vibration (R below the typical distance between resting places)
         refine = auto and (w, settle) != (1, 1) and 0 < excursion < sep
@@ -1289,7 +1509,7 @@ def count_hops(traj, species, *, method="displacement", reference=None, threshol
             excursion = float("nan")
         out = _census_displacement(stream, thr, w, settle, lookahead,
                                    reach=excursion if refine else None,
-                                   delta=w // 2 + settle + 1)
+                                   delta=w // 2 + settle + 1, span=corr_span)
         res_frames = 1 if refine else max(settle, (w + 1) // 2)
     else:
         # sites: peaks of the density; the core radius from the allowance, every raw
@@ -1299,13 +1519,16 @@ def count_hops(traj, species, *, method="displacement", reference=None, threshol
         core = r_max
         w = settle = 0
         if auto:
-            r_c, _ = _core_radius(neighbour, weight, sigma_vib, n_obs, allowance, r_max)
+            r_c, _ = _core_radius(neighbour, weight, sigma_vib, n_obs, allowance, r_max, rho1)
             if r_c >= _MIN_CORE_SIGMAS * sigma_vib:
                 core, w, settle = r_c, 1, 1
         if not w:
             w, settle = _choose_resolution(ladder, d_nn - core, n_obs, n, w_user, s_user)
         locator.core = float(core)
-        out = _census_sites(stream, locator, w, settle, cells, _WALK_BACK_FRAMES)
+        # a hop walks back over the frames already nearer the new site: with correlated
+        # vibration an ion can stay outside the new core for several spans after arriving
+        out = _census_sites(stream, locator, w, settle, cells,
+                            max(_WALK_BACK_FRAMES, _WALK_BACK_SPANS * span))
         res_frames = max(settle, (w + 1) // 2)
 
     # ---- the census
@@ -1348,7 +1571,8 @@ def count_hops(traj, species, *, method="displacement", reference=None, threshol
         settle_frames=int(settle),
         time_resolution_ps=float(res_frames * dt), vibration_rms_A=float(sigma_vib),
         max_frame_step_A=float(scout.max_step), sites=sites, message=msg,
-        excursion_radius_A=float(excursion), false_hop_allowance=float(allowance))
+        excursion_radius_A=float(excursion), false_hop_allowance=float(allowance),
+        vibration_span_frames=int(span), vibration_step_correlation=float(rho1))
 
 
 def _choose_resolution(ladder, reach, n_obs, n, w_user, s_user):
@@ -1372,11 +1596,13 @@ def _choose_resolution(ladder, reach, n_obs, n, w_user, s_user):
     return w, min(s, max(1, n - 1))
 
 
-def _census_displacement(stream, thr, w, settle, lookahead, reach=None, delta=0):
+def _census_displacement(stream, thr, w, settle, lookahead, reach=None, delta=0, span=1):
     hop_f, hop_i, hop_vec, disp = [], [], [], []
     for ids, pos in stream():
         m = running_median(pos, w)
-        frames, ions = _follow_resting_places(m, thr, settle, lookahead)
+        frames, ions = _follow_resting_places(m, thr, settle, lookahead,
+                                              min_anchor=_FIRST_ANCHOR_SPANS * span
+                                              if span > 1 else 1)
         centres, first, lengths, sid = _stay_centres(m, frames, ions, thr)
         if reach is None:
             counts = np.bincount(ions, minlength=len(ids))
@@ -1388,7 +1614,7 @@ def _census_displacement(stream, thr, w, settle, lookahead, reach=None, delta=0)
             disp.append(centres[first + counts] - centres[first])
             continue
         label, places = _refine_stays(pos, frames, ions, centres, first, lengths, sid, thr,
-                                      reach, delta)
+                                      reach, delta, span)
         ci, ct = np.nonzero(label[:, 1:] != label[:, :-1])
         hop_vec.append(places[label[ci, ct + 1]] - places[label[ci, ct]])
         hop_f.append(ct + 1)

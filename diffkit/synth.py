@@ -4,8 +4,11 @@ Three physical models, each returned with its ground truth:
 
 * :func:`hopping_run` — non-interacting ions hopping between sites with
   Arrhenius rates, exponential residence times (a continuous-time Poisson
-  process) and Gaussian thermal vibration about the site; optional immobile
-  framework atoms that vibrate too. D is exact: D = Γ_total a² / (2d) on a
+  process) and Gaussian thermal vibration about the site — independent from
+  frame to frame, or (``vibration_period_frames``) a damped oscillator driven
+  by noise, correlated in time as in MD saved every few femtoseconds
+  (stationary AR(2) process; Box & Jenkins, *Time Series Analysis*, ch. 3);
+  optional immobile framework atoms that vibrate too. D is exact: D = Γ_total a² / (2d) on a
   Bravais lattice of sites (Einstein relation; Mehrer, *Diffusion in Solids*,
   Springer 2007, ch. 4), and for a general periodic site network it is
   computed exactly by :func:`network_diffusion_tensor`.
@@ -45,6 +48,7 @@ __all__ = [
     "vacancy_kmc_run",
     "arrhenius_campaign",
     "network_diffusion_tensor",
+    "ar2_autocorrelation",
     "write_run",
     "HOPPING_LATTICES",
     "VACANCY_LATTICES",
@@ -561,11 +565,85 @@ def _choose_reps(lattice, net, n_ions, cells_per_side, reach_A):
         m += 1
 
 
+# --------------------------------------------------------------------------- vibration
+def _vibration_poles(period, damping):
+    """AR(2) coefficients (φ1, φ2, r) of the correlated vibration, or None for white noise."""
+    if period is None:
+        if damping is not None:
+            raise UsageError("vibration_damping needs vibration_period_frames (the damping "
+                             "of an oscillation of that period)")
+        return None
+    P = _check_number("vibration_period_frames", period, positive=True)
+    if not P > 2.0:
+        raise UsageError(f"vibration_period_frames must exceed 2 frames (an oscillation "
+                         f"sampled at least twice per period), got {period!r}")
+    r = math.exp(-1.0 / P) if damping is None else _check_number("vibration_damping", damping)
+    if not 0.0 < r < 1.0:
+        raise UsageError(f"vibration_damping must lie strictly between 0 and 1 (envelope "
+                         f"decay per frame), got {damping!r}")
+    w = 2.0 * math.pi / P
+    return 2.0 * r * math.cos(w), -r * r, r
+
+
+def ar2_autocorrelation(phi1, phi2, max_lag):
+    """Autocorrelation ρ(0 … max_lag) of the stationary AR(2) process.
+
+    x_t = φ1 x_{t−1} + φ2 x_{t−2} + ε_t has ρ(0) = 1, ρ(1) = φ1 / (1 − φ2) and
+    ρ(k) = φ1 ρ(k−1) + φ2 ρ(k−2) (the Yule–Walker equations; Box & Jenkins,
+    *Time Series Analysis*, ch. 3, AR(2) process).
+
+    Parameters
+    ----------
+    phi1, phi2 : float
+        Coefficients of a stationary process (poles inside the unit circle).
+    max_lag : int
+        Largest lag, frames.
+
+    Returns
+    -------
+    (max_lag + 1,) float
+    """
+    rho = np.empty(int(max_lag) + 1)
+    rho[0] = 1.0
+    if max_lag >= 1:
+        rho[1] = phi1 / (1.0 - phi2)
+    for k in range(2, int(max_lag) + 1):
+        rho[k] = phi1 * rho[k - 1] + phi2 * rho[k - 2]
+    return rho
+
+
+def _ar2_noise(rng, shape, sigma, phi1, phi2, r):
+    """Stationary AR(2) noise along axis 0 with rms ``sigma``: (n_frames, ...) float.
+
+    The innovation variance giving a stationary variance γ0 = σ² is
+    σ_ε² = σ² (1 + φ2) ((1 − φ2)² − φ1²) / (1 − φ2) (Box & Jenkins, ch. 3);
+    the first two frames are drawn from the stationary joint distribution
+    (variance σ², lag-one correlation ρ1), so the process is stationary from
+    frame 0 on.
+    """
+    from scipy.signal import lfilter
+
+    rho1 = phi1 / (1.0 - phi2)
+    s_eps = sigma * math.sqrt((1.0 + phi2) * ((1.0 - phi2) ** 2 - phi1 ** 2) / (1.0 - phi2))
+    out = np.empty(shape)
+    z = rng.standard_normal(size=(2,) + tuple(shape[1:]))
+    out[0] = sigma * z[0]
+    if shape[0] > 1:
+        out[1] = sigma * (rho1 * z[0] + math.sqrt(1.0 - rho1 * rho1) * z[1])
+    if shape[0] > 2:
+        eps = rng.standard_normal(size=(shape[0] - 2,) + tuple(shape[1:])) * s_eps
+        # direct form II transposed state that continues from x1, x0
+        zi = np.stack([phi1 * out[1] + phi2 * out[0], phi2 * out[1]])
+        out[2:], _ = lfilter([1.0], [1.0, -phi1, -phi2], eps, axis=0, zi=zi)
+    return out
+
+
 def hopping_run(*, n_ions=100, n_frames=10_000, frame_interval_ps=0.1, temperature_K=600.0,
                 Ea_eV=0.2, attempt_frequency_THz=10.0, jump_distance_A=2.0, lattice="sc",
                 sites=None, cell=None, site_coordinates="fractional", neighbour_cutoff_A=None,
                 cells_per_side=None, c_A=None, vibration_rms_A=0.1, framework=None,
-                mobile_species="Li", seed=0):
+                mobile_species="Li", seed=0, vibration_period_frames=None,
+                vibration_damping=None):
     """Non-interacting ions hopping between lattice sites, with thermal vibration.
 
     Each ion jumps to each neighbouring site with rate Γ = ν exp(−Ea / k_B T)
@@ -574,7 +652,9 @@ def hopping_run(*, n_ions=100, n_frames=10_000, frame_interval_ps=0.1, temperatu
     several hops between two saved frames are possible at high rates). Ions do
     not interact; several may share a site. Saved positions are the ion's
     unwrapped site position plus Gaussian noise of rms ``vibration_rms_A`` per
-    axis, drawn independently per frame.
+    axis: drawn independently per frame, or — with ``vibration_period_frames`` —
+    a damped oscillation driven by noise, correlated from frame to frame as the
+    vibration of an MD run saved every few femtoseconds.
 
     Parameters
     ----------
@@ -618,6 +698,19 @@ def hopping_run(*, n_ions=100, n_frames=10_000, frame_interval_ps=0.1, temperatu
         Element symbol of the ions.
     seed : int, numpy.random.SeedSequence or None
         Same seed, same run.
+    vibration_period_frames : float, frames, optional
+        None (default): vibration independent from frame to frame (the same
+        numbers as before this option existed, for the same seed). A number
+        P > 2: every coordinate of every atom vibrates as a stationary
+        second-order autoregressive process (a damped harmonic oscillator
+        driven by white noise, sampled once per frame) with poles at
+        r·exp(±2πi/P), scaled so that its stationary rms per axis is exactly
+        ``vibration_rms_A``; its autocorrelation is ρ(k) ≈ r^k cos(2πk/P)
+        (exactly: :func:`ar2_autocorrelation`).
+    vibration_damping : float, optional
+        r in (0, 1), the factor by which the oscillation's envelope decays per
+        frame. Default exp(−1/P): the autocorrelation envelope falls to 1/e
+        over one period. Only with ``vibration_period_frames``.
 
     Returns
     -------
@@ -641,6 +734,7 @@ def hopping_run(*, n_ions=100, n_frames=10_000, frame_interval_ps=0.1, temperatu
     nu = _check_number("attempt_frequency_THz", attempt_frequency_THz, positive=True)
     a = _check_number("jump_distance_A", jump_distance_A, positive=True)
     sigma = _check_number("vibration_rms_A", vibration_rms_A, nonnegative=True)
+    ar2 = _vibration_poles(vibration_period_frames, vibration_damping)
     _check_element("mobile_species", mobile_species)
     if lattice not in HOPPING_LATTICES:
         raise UsageError(f"unknown lattice {lattice!r} for hopping_run; "
@@ -724,8 +818,10 @@ def hopping_run(*, n_ions=100, n_frames=10_000, frame_interval_ps=0.1, temperatu
     positions = np.empty((n_frames, n_ions + n_fw, 3))
     positions[:, :n_ions] = disp
     positions[:, n_ions:] = fw_pos[None]
-    if sigma > 0:
+    if sigma > 0 and ar2 is None:
         positions += rng.normal(0.0, sigma, size=positions.shape)
+    elif sigma > 0:
+        positions += _ar2_noise(rng, positions.shape, sigma, *ar2)
 
     # exact D (the tensor per unit rate fixes the dimensionality even where Γ underflows)
     z_mean = len(net.src) / n_unit
@@ -756,6 +852,9 @@ def hopping_run(*, n_ions=100, n_frames=10_000, frame_interval_ps=0.1, temperatu
               "jump_distance_A": a, "lattice": lattice, "cells_per_side": reps.tolist(),
               "vibration_rms_A": sigma, "framework": {k: int(v) for k, v in framework.items()},
               "mobile_species": mobile_species}
+    if ar2 is not None:
+        params.update(vibration_period_frames=float(vibration_period_frames),
+                      vibration_damping=float(ar2[2]))
     if lattice == "sites":
         params.update(sites=net.frac.tolist(), cell=net.cell.tolist(),
                       neighbour_cutoff_A=float(np.max(np.linalg.norm(net.vec, axis=1))))
@@ -1006,7 +1105,8 @@ def vacancy_kmc_run(*, lattice="sc", cells_per_side=None, n_replicas=20, n_vacan
 def arrhenius_campaign(*, temperatures_K=(500, 600, 750, 1000), Ea_eV=0.2,
                        attempt_frequency_THz=10.0, n_ions=100, n_frames=1000,
                        frame_interval_ps=0.1, jump_distance_A=2.0, vibration_rms_A_at_300K=0.1,
-                       framework=None, mobile_species="Li", lattice="sc", seed=0):
+                       framework=None, mobile_species="Li", lattice="sc", seed=0,
+                       vibration_period_frames=None, vibration_damping=None):
     """One :func:`hopping_run` per temperature, with the exact Arrhenius law.
 
     Vibration rms scales as sqrt(T / 300 K) (classical harmonic oscillator).
@@ -1048,7 +1148,9 @@ def arrhenius_campaign(*, temperatures_K=(500, 600, 750, 1000), Ea_eV=0.2,
                            jump_distance_A=jump_distance_A, lattice=lattice,
                            cells_per_side=cells_per_side,
                            vibration_rms_A=sig300 * math.sqrt(T / 300.0), framework=framework,
-                           mobile_species=mobile_species, seed=children[i])
+                           mobile_species=mobile_species, seed=children[i],
+                           vibration_period_frames=vibration_period_frames,
+                           vibration_damping=vibration_damping)
 
     # one box for all temperatures: the one the hottest (fastest) run needs to be unwrappable
     hottest = int(np.argmax(temps))

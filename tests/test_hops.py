@@ -200,6 +200,90 @@ def test_vibrating_crystal_has_no_hops(method, sigma):
     assert "No Li hop" in hops.message
     # the threshold came from the structure: 0.6 × the 2 Å distance between ions' sites
     assert hops.threshold_A == pytest.approx(1.2, rel=0.1)
+    # independent frames: no correlation found, so none of the correlated-vibration rules ran
+    assert hops.vibration_span_frames == 1 and hops.vibration_step_correlation == 0.0
+
+
+# --------------------------------------------------------------------------- correlated vibration
+# MD saved every few fs sees the thermal vibration correlated from frame to frame. The
+# generator's option vibration_period_frames makes it a damped oscillator driven by noise
+# (stationary AR(2), rms per axis exactly vibration_rms_A; tests/test_synth.py checks it
+# against Box & Jenkins' AR(2) variance and autocorrelation).
+
+@pytest.mark.parametrize("method", ["displacement", "sites"])
+@pytest.mark.parametrize("period, sigma, damping", [
+    (5, 0.3, math.exp(-1 / 5)),      # envelope 1/e after one period
+    (10, 0.3, 0.9),                  # the probe that gave 44 false hops before
+    (20, 0.2, math.exp(-1 / 60)),    # ... after three periods
+    (50, 0.1, math.exp(-1 / 100)),
+    (50, 0.3, math.exp(-1 / 50)),
+])
+def test_crystal_with_correlated_vibration_has_no_hops(method, period, sigma, damping):
+    # no hop in the run (Ea = 50 eV, checked on the truth); 2,000 frames, 64 ions
+    run = hopping_run(n_ions=64, n_frames=2000, Ea_eV=50.0, vibration_rms_A=sigma,
+                      vibration_period_frames=period, vibration_damping=damping, seed=period)
+    assert run.truth.n_hops == 0
+    hops = count_hops(run.trajectory, "Li", method=method)
+    assert hops.total_hops == 0, (hops.total_hops, hops.threshold_A)
+    # the threshold still comes from the 2 Å between sites, not from vibration
+    assert hops.threshold_A == pytest.approx(1.2, rel=0.1)
+    # the correlation was seen and reported: it lasts about half a period
+    assert 2 <= hops.vibration_span_frames <= period
+    assert 0 < hops.vibration_step_correlation < 1
+    assert hops.vibration_rms_A == pytest.approx(sigma, rel=0.2)
+
+
+@pytest.mark.parametrize("method", ["displacement", "sites"])
+@pytest.mark.parametrize("period, sigma", [(20, 0.2), (50, 0.3)])
+def test_hops_are_found_through_correlated_vibration(method, period, sigma):
+    # hops and correlated vibration together: 2 Å spacing, mean stay 100 frames.
+    # The generator's jumps are instantaneous (a 2 Å step between two frames while the
+    # vibration changes by ≈ σ·√(2(1 − ρ1)) ≪ 1 Å), so ±3 frames stays achievable even when
+    # the period is long; the same acceptance as for uncorrelated vibration applies.
+    run = hopping_run(n_ions=40, n_frames=5000, frame_interval_ps=DT_PS, temperature_K=T_K,
+                      Ea_eV=_Ea_for_residence(100), attempt_frequency_THz=NU_THZ,
+                      jump_distance_A=2.0, vibration_rms_A=sigma,
+                      vibration_period_frames=period, seed=7)
+    hops = count_hops(run.trajectory, "Li", method=method)
+    found, false, strict = _score(run, hops)
+    assert len(strict) > 1500
+    assert found >= 0.95, found
+    assert false <= 0.05, false
+    assert hops.threshold_A == pytest.approx(1.2, rel=0.1)
+
+
+def test_fast_hopping_is_not_taken_for_correlated_vibration():
+    # a hop every 2 frames makes differences of positions grow with the lag as slow
+    # vibration would; the span must stay at one frame (the big steps are hops)
+    run = hopping_run(n_ions=20, n_frames=800, Ea_eV=_Ea_for_residence(2),
+                      vibration_rms_A=0.1, seed=14)
+    hops = count_hops(run.trajectory, "Li")
+    assert hops.vibration_span_frames == 1 and hops.vibration_step_correlation == 0.0
+    assert hops.threshold_A == pytest.approx(1.2, rel=0.1)
+    assert hops.mean_jump_distance_A == pytest.approx(2.0, rel=0.1)
+
+
+def test_entry_share_bounds_simulated_excursions():
+    # reference: direct simulation of 3-D AR(2) vibration (the generator's process); the
+    # share is Rice's upcrossing rate over the time spent beyond the level (from memory),
+    # which must not undercount the separate excursions (false-hop budgets rely on it)
+    from diffkit.hops import _entry_share
+    from diffkit.synth import _ar2_noise, _vibration_poles
+
+    rng = np.random.default_rng(3)
+    for period in (10, 20, 50):
+        phi1, phi2, r = _vibration_poles(period, None)
+        x = _ar2_noise(rng, (40_000, 20, 3), 1.0, phi1, phi2, r)
+        d = np.sqrt(np.einsum("tki,tki->tk", x, x))
+        rho1 = phi1 / (1 - phi2)
+        for u in (3.0, 3.5):
+            beyond = d > u
+            entries = np.sum(beyond[1:] & ~beyond[:-1])
+            measured = entries / beyond[1:].sum()
+            model = _entry_share(rho1, u)
+            assert model >= measured * 0.98, (period, u, measured, model)
+            assert model <= measured * 1.4, (period, u, measured, model)
+    assert _entry_share(0.0, 3.0) == 1.0          # uncorrelated: every frame is its own
 
 
 def test_jump_distance_vibration_and_effective_hops_match_the_truth():

@@ -22,7 +22,8 @@ import pytest
 from scipy import constants as sc
 
 from diffkit.errors import DiffkitWarning, UsageError
-from diffkit.synth import (CampaignTruth, GroundTruth, SyntheticRun, arrhenius_campaign,
+from diffkit.synth import (CampaignTruth, GroundTruth, SyntheticRun, ar2_autocorrelation,
+                           arrhenius_campaign,
                            hopping_run, network_diffusion_tensor, vacancy_kmc_run, write_run)
 
 K_B_EV = sc.k / sc.e  # CODATA via scipy, independent of diffkit.units
@@ -182,6 +183,70 @@ def test_vibration_rms_per_axis_and_framework():
         assert np.all(traj.masses[traj.indices(s)] == atomic_masses[atomic_numbers[s]])
     assert list(traj.symbols) == ["Li", "P", "S"]
     assert traj.count("P") == 8 and traj.count("S") == 32
+
+
+def test_uncorrelated_vibration_unchanged_by_the_correlated_option():
+    # vibration_period_frames=None must keep the old noise bit for bit: the same
+    # numbers as leaving the option out, and that noise is σ × one block of standard
+    # normals drawn last (so the hops, sites and framework draws are untouched)
+    kw = dict(n_ions=12, n_frames=400, Ea_eV=0.3, framework={"S": 6}, cells_per_side=12, seed=8)
+    plain = hopping_run(vibration_rms_A=0.2, **kw).trajectory.positions
+    same = hopping_run(vibration_rms_A=0.2, vibration_period_frames=None,
+                       vibration_damping=None, **kw).trajectory.positions
+    assert np.array_equal(plain, same)
+    still = hopping_run(vibration_rms_A=0.0, **kw).trajectory.positions
+    half = hopping_run(vibration_rms_A=0.4, **kw).trajectory.positions
+    assert np.allclose(plain - still, 0.5 * (half - still), rtol=0, atol=1e-9)
+    noise = (half - still).reshape(400, -1)
+    lag1 = np.mean(noise[1:] * noise[:-1]) / np.mean(noise * noise)
+    assert abs(lag1) < 0.03                        # independent frame to frame
+    corr = hopping_run(vibration_rms_A=0.2, vibration_period_frames=10, **kw)
+    assert not np.allclose(corr.trajectory.positions, plain)
+    params = corr.trajectory.provenance["parameters"]
+    assert params["vibration_period_frames"] == 10
+    assert params["vibration_damping"] == pytest.approx(math.exp(-0.1))
+    assert "vibration_period_frames" not in hopping_run(n_ions=2, n_frames=3).trajectory \
+        .provenance["parameters"]
+
+
+def test_ar2_autocorrelation_matches_closed_form():
+    # Box & Jenkins, Time Series Analysis, ch. 3 (AR(2) with complex roots, from memory):
+    # ρ_k = r^k sin(kω + F) / sin F with tan F = (1 + r²)/(1 − r²) · tan ω, for
+    # φ1 = 2 r cos ω > 0, φ2 = −r²
+    for period, r in ((5, 0.8), (10, 0.9), (50, 0.98)):
+        w = 2 * math.pi / period
+        F = math.atan((1 + r * r) / (1 - r * r) * math.tan(w))
+        k = np.arange(3 * period)
+        closed = r ** k * np.sin(k * w + F) / math.sin(F)
+        rho = ar2_autocorrelation(2 * r * math.cos(w), -r * r, 3 * period - 1)
+        assert np.allclose(rho, closed, atol=1e-12)
+
+
+@pytest.mark.parametrize("period, damping", [(5, None), (10, 0.9), (50, 0.99)])
+def test_correlated_vibration_is_the_stationary_ar2_process(period, damping):
+    # reference: the stationary AR(2) process (Box & Jenkins, Time Series Analysis,
+    # ch. 3): stationary variance σ² per axis from the first frame on, and the
+    # autocorrelation of ar2_autocorrelation (checked against the closed form above)
+    sigma = 0.25
+    run = hopping_run(n_ions=200, n_frames=4000, Ea_eV=50.0, vibration_rms_A=sigma,
+                      vibration_period_frames=period, vibration_damping=damping, seed=21)
+    assert run.truth.n_hops == 0
+    pos = run.trajectory.positions
+    x = (pos - run.truth.site_positions_A[run.truth.initial_site_of_atom][None]).reshape(
+        4000, -1)                                          # 600 independent series
+    r = math.exp(-1.0 / period) if damping is None else damping
+    rho = ar2_autocorrelation(2 * r * math.cos(2 * math.pi / period), -r * r, 2 * period)
+    # stationary from frame 0: the ensemble variance at the first, second and last frames
+    for f in (0, 1, 2, -1):
+        assert np.mean(x[f] ** 2) == pytest.approx(sigma ** 2, rel=0.15)
+    # the lag-one ensemble correlation at frames 0-1 is already the stationary one
+    assert np.mean(x[0] * x[1]) / sigma ** 2 == pytest.approx(rho[1], abs=0.08)
+    # time averages over all series
+    assert np.mean(x * x) == pytest.approx(sigma ** 2, rel=0.02)
+    emp = np.array([np.mean(x[k:] * x[:len(x) - k]) for k in range(2 * period + 1)]) / sigma ** 2
+    assert np.allclose(emp, rho, atol=0.03), np.abs(emp - rho).max()
+    # and the run is still written and read like any other (no change to the hop list)
+    assert run.truth.vibration_rms_A == sigma
 
 
 def test_trajectory_metadata():
@@ -454,6 +519,11 @@ def test_xdatcar_refused_when_frames_too_far_apart(tmp_path):
     (lambda: hopping_run(frame_interval_ps=0), "frame_interval_ps must be positive"),
     (lambda: hopping_run(vibration_rms_A=float("nan")), "vibration_rms_A must be a finite"),
     (lambda: hopping_run(lattice="sites"), "needs sites="),
+    (lambda: hopping_run(vibration_period_frames=2.0), "vibration_period_frames must exceed 2"),
+    (lambda: hopping_run(vibration_period_frames=-3), "vibration_period_frames must be positive"),
+    (lambda: hopping_run(vibration_period_frames=10, vibration_damping=1.0),
+     "vibration_damping must lie strictly between 0 and 1"),
+    (lambda: hopping_run(vibration_damping=0.9), "vibration_damping needs vibration_period"),
     (lambda: hopping_run(lattice="sites", sites=[[0, 0, 0]], cell=3.0, neighbour_cutoff_A=1.0),
      "no two sites"),
     (lambda: hopping_run(framework={"Li": 3}), "also the mobile species"),
