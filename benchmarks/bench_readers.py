@@ -127,7 +127,7 @@ def main(argv=None):
                 assert raw.positions.shape == (args.frames, args.atoms, 3)
                 dkp_w, dkp_c, _ = timed(lambda: read_raw(part, format=fmt, **kw), args.repeat)
                 ase_w, ase_c, images = timed(
-                    lambda: ase.io.read(part, index=":", format=ASE_FORMATS[fmt]), 1)
+                    lambda: ase.io.read(part, index=":", format=ASE_FORMATS[fmt]), 2)
                 extra = []
                 if fmt == "lammpsdump" and _parsing.fast_parse_available():
                     _parsing.FAST_PARSE = False  # the numpy decoder, as without pyarrow
@@ -162,7 +162,8 @@ def main(argv=None):
           "(a file of their own); MB/s = file size / time")
     fast = "pyarrow's CSV reader" if _parsing.fast_parse_available() else \
         "the numpy decoder (pyarrow not installed or DIFFKIT_FAST_PARSE=0)"
-    print(f"LAMMPS atom lines decoded by {fast}; decoding threads: {_parsing.THREADS}")
+    print(f"LAMMPS atom lines decoded by {fast}; pyarrow's own threads "
+          f"{'on' if _parsing.FAST_THREADS else 'off'}; numpy decoding threads: {_parsing.THREADS}")
     head = (f"{'format':<16} {'size MB':>8} {'diffkit MB/s':>13} {'(cpu)':>7} "
             f"{'diffkit on part':>16} {'ASE MB/s':>9} {'(cpu)':>7} {'ratio wall':>11} "
             f"{'ratio cpu':>10}")

@@ -453,7 +453,8 @@ def _run_tasks(tasks, workers, scheduler, progress):
                 progress(i + 1, len(tasks))
         return out
     with ProcessPoolExecutor(max_workers=min(workers, len(tasks)),
-                             mp_context=get_context("spawn")) as pool:
+                             mp_context=get_context("spawn"),
+                             initializer=_worker_setup) as pool:
         futures = [pool.submit(_execute, t) for t in tasks]
         for i, (t, fut) in enumerate(zip(tasks, futures)):
             try:
@@ -491,9 +492,17 @@ def _restore_mmap_threshold():
         pass
 
 
+def _worker_setup():
+    """In a worker process of the pool: read with one thread (the processes fill the cores)."""
+    from .io._parsing import single_threaded
+
+    single_threaded()
+
+
 def _execute_on_dask(task):
     """A Dask worker's task: :func:`_execute` with the worker's malloc made usual."""
     _restore_mmap_threshold()
+    _worker_setup()
     return _execute(task)
 
 

@@ -566,13 +566,15 @@ class _DumpReader:
         text = [lay.element_col] if lay.element_col is not None else []
         dotted = sorted(lay.pos_cols + (lay.vel_cols or []))
         lead = min(lay.pos_cols)  # ids, types, names before the positions: often repeated
+        ints = [c for c in (lay.id_col, lay.type_col) if c is not None] + list(lay.img_cols or [])
 
         def decode(a, b):
             data = b"".join(view[x:y] for x, y in bodies[a:b])
             ends = np.cumsum([y - x for x, y in bodies[a:b]])
             if self._fast and len(data) >= _parsing.FAST_MIN_BYTES:
                 got = decode_spaced_fields(data, (b - a) * n, len(lay.columns), lay.usecols,
-                                           textcols=text, lines_per_frame=n, frame_ends=ends)
+                                           textcols=text, lines_per_frame=n, frame_ends=ends,
+                                           intcols=ints)
                 if got is not None:
                     return got
                 got = decode_fields(data, (b - a) * n, len(lay.columns), lay.usecols,
