@@ -17,7 +17,7 @@ prints, measured in this run:
   time, which is less disturbed by other jobs on a shared machine).
 
 LAMMPS dumps are decoded by pyarrow's CSV reader when pyarrow is installed
-(``diffkit[fast]``); the script then also times the numpy decoder on the same
+(a dependency); the script then also times the numpy decoder on the same
 file (row ``lammpsdump/numpy``), the path taken without pyarrow. The line
 "decoded by" says which path each LAMMPS row took. ``DIFFKIT_READ_THREADS=2``
 (environment) lets two threads decode.

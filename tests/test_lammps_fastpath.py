@@ -1,7 +1,7 @@
 """The LAMMPS reader's fast path (pyarrow's CSV reader) against its numpy path, Python and ASE.
 
 The atom lines of a LAMMPS dump are decoded by pyarrow when it is installed
-(``diffkit[fast]``), by diffkit's numpy decoder otherwise, and line by line
+(a dependency), by diffkit's numpy decoder otherwise, and line by line
 where either gives up. All three must give the very same float64 numbers and
 the very same error messages. References: Python's ``float`` (correctly
 rounded decimal conversion, IEEE 754; the Python documentation, "Floating point
@@ -23,7 +23,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-pytest.importorskip("pyarrow", reason="the fast path needs pyarrow: pip install 'diffkit[fast]'")
+pytest.importorskip("pyarrow", reason="the fast path needs pyarrow (a dependency of diffkit)")
 
 import ase.io  # noqa: E402
 

@@ -58,7 +58,7 @@ try:
     THREADS = max(1, int(os.environ.get("DIFFKIT_READ_THREADS", "1")))
 except ValueError:
     THREADS = 1
-#: Whether pyarrow's CSV reader may use its own threads (LAMMPS dumps, ``diffkit[fast]``).
+#: Whether pyarrow's CSV reader may use its own threads (LAMMPS dumps).
 #: On by default: measured on an idle 2-core machine it read a 180 MB dump at 119 MB/s
 #: against 86 MB/s with one thread. ``DIFFKIT_READ_THREADS=1`` turns it off, and so do
 #: campaign workers (:func:`single_threaded`), whose processes already fill the cores.
@@ -950,7 +950,7 @@ class FixedWidthLayout:
 
 # ----------------------------------------------------------------------------- with pyarrow
 #: Whether the LAMMPS reader may hand its atom lines to pyarrow's CSV reader (C++), when
-#: pyarrow is installed (``pip install "diffkit[fast]"``); the numpy decoder otherwise. The
+#: pyarrow is installed (a dependency of diffkit); the numpy decoder otherwise. The
 #: environment variable DIFFKIT_FAST_PARSE=0 turns it off.
 FAST_PARSE = os.environ.get("DIFFKIT_FAST_PARSE", "1").strip().lower() not in (
     "0", "off", "no", "false")

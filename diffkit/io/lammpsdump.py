@@ -25,7 +25,7 @@ user's ``md_timestep_ps``.
 
 Speed: the atom lines of many frames are converted at once (see
 :mod:`diffkit.io._parsing`): by pyarrow's CSV reader when pyarrow is
-installed (``diffkit[fast]``) and the fields are separated by single spaces,
+installed (a dependency) and the fields are separated by single spaces,
 else by the numpy decoder, which reads ids, types and element names that
 repeat frame after frame (``dump_modify sort id``) once per chunk. Both give
 the same numbers bit for bit. Whatever neither recognises is read line by
