@@ -432,19 +432,7 @@ def _digits_before(W, at, keep, bad):
     t |= x
     t &= _HIGH_BITS
     bad |= t
-    np.right_shift(x, 8, out=t)
-    x *= 10
-    x += t
-    x &= _M1
-    np.right_shift(x, 16, out=t)
-    x *= 100
-    x += t
-    x &= _M2
-    np.right_shift(x, 32, out=t)
-    x *= 10000
-    x += t
-    x &= _M3
-    return x
+    return _digit_bytes_value(x, t)
 
 
 def _slow_numbers(data, starts, ends):
@@ -746,9 +734,15 @@ def _not_digits(x):
     return t
 
 
-def _digit_bytes_value(x):
-    """Value of 8 decimal digits held as bytes 0..9 in uint64 ``x`` (first lowest), in place."""
-    t = x >> 8
+def _digit_bytes_value(x, t=None):
+    """Value of 8 decimal digits held as bytes 0..9 in uint64 ``x`` (first lowest), in place.
+
+    ``t`` is an optional scratch array of the same shape (overwritten).
+    """
+    if t is None:
+        t = x >> 8
+    else:
+        np.right_shift(x, 8, out=t)
     x *= 10
     x += t
     x &= _M1
