@@ -12,13 +12,11 @@ is its own), measured in the same session:
 * ``dask``    — ``run_campaign(scheduler=client)`` on a
   ``dask.distributed.LocalCluster(n_workers=2, threads_per_worker=1)``
   (cluster start-up reported apart, not in the campaign time);
-* ``dask-mmap`` — the same with ``MALLOC_MMAP_THRESHOLD_=33554432`` in the
-  workers' environment. Dask's nanny sets ``MALLOC_TRIM_THRESHOLD_`` for its
-  workers, which turns off glibc's adaptive mmap threshold: every large numpy
-  array is then mapped and unmapped afresh, and page faults cost the analysis
-  about a quarter of its time. diffkit's Dask tasks now set the threshold back
-  (32 MiB, the adaptive maximum) themselves, which removes most of the
-  difference between ``dask`` and ``dask-mmap``; the mode is kept to show it;
+* ``dask-quiet`` — the same with ``diffkit.campaign.DASK_SETTINGS`` (the
+  Dask settings docs/campaigns.md recommends: the event loops of workers,
+  nannies and scheduler wake less often) in the configuration the workers
+  inherit. In both Dask modes diffkit's tasks set glibc's memory thresholds of
+  their worker and pause its sampling profiler themselves;
 * ``rerun``   — the serial campaign again with nothing changed, in-process and
   as the ``diffkit campaign`` command (interpreter start-up included).
 
@@ -152,11 +150,14 @@ def measure(mode, manifest, out):
     cluster = client = None
     if mode == "pool":
         kwargs = {"workers": 2}
-    elif mode in ("dask", "dask-mmap"):
+    elif mode in ("dask", "dask-quiet"):
+        import dask
         from dask.distributed import Client, LocalCluster
 
-        if mode == "dask-mmap":  # inherited by the workers the nannies start
-            os.environ["MALLOC_MMAP_THRESHOLD_"] = "33554432"
+        if mode == "dask-quiet":  # the nannies hand the configuration on to the workers
+            from diffkit.campaign import DASK_SETTINGS
+
+            dask.config.set(DASK_SETTINGS)
         t = time.perf_counter()
         cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                dashboard_address=None)
@@ -177,7 +178,7 @@ def measure(mode, manifest, out):
     info["main_rss_MB"] = _maxrss_MB()
     if mode == "pool":
         info["worker_rss_MB"] = [_maxrss_MB(resource.RUSAGE_CHILDREN)]
-    elif mode in ("dask", "dask-mmap"):
+    elif mode in ("dask", "dask-quiet"):
         def usage(dask_worker=None):
             import resource as r
 
@@ -248,26 +249,26 @@ def main(argv=None):
         print(f"campaign: {args.candidates} candidates × {len(TEMPERATURES_K)} temperatures = "
               f"{n_runs} runs, {args.frames} frames each; {os.cpu_count()} cores\n")
         rows = {}
-        outs = {m: os.path.join(scratch, m) for m in ("serial", "pool", "dask", "dask-mmap")}
+        outs = {m: os.path.join(scratch, m) for m in ("serial", "pool", "dask", "dask-quiet")}
         rows["serial"] = _subprocess("serial", manifest, outs["serial"])
         rows["pool"] = _subprocess("pool", manifest, outs["pool"])
         if not args.skip_dask:
-            for m in ("dask", "dask-mmap"):
+            for m in ("dask", "dask-quiet"):
                 rows[m] = _subprocess(m, manifest, outs[m])
         rows["rerun"] = _subprocess("rerun", manifest, outs["serial"])
         cli_wall, _ = _cli_rerun(manifest, outs["serial"])
 
         ref = _canonical(outs["serial"])
-        for m in ("pool", "dask", "dask-mmap"):
+        for m in ("pool", "dask", "dask-quiet"):
             if m in rows:
                 rows[m]["identical_to_serial"] = _canonical(outs[m]) == ref
 
         base = rows["serial"]["wall_s"]
-        print(f"{'mode':<9s} {'wall s':>8s} {'runs s':>8s} {'after s':>8s} {'speed-up':>9s} "
+        print(f"{'mode':<10s} {'wall s':>8s} {'runs s':>8s} {'after s':>8s} {'speed-up':>9s} "
               f"{'CPU s':>8s} {'load':>5s} {'main RSS MB':>12s}  worker RSS MB")
         for m, r in rows.items():
             workers = ", ".join(f"{x:.0f}" for x in r.get("worker_rss_MB", [])) or "—"
-            print(f"{m:<9s} {r['wall_s']:8.1f} {r['runs_s']:8.1f} {r['after_runs_s']:8.1f} "
+            print(f"{m:<10s} {r['wall_s']:8.1f} {r['runs_s']:8.1f} {r['after_runs_s']:8.1f} "
                   f"{base / r['wall_s']:8.2f}× {r['cpu_s']:8.1f} {r['load_average']:5.1f} "
                   f"{r['main_rss_MB']:12.0f}  {workers}")
         print("(CPU s: user + system time of the campaign's processes; load: the machine's "
@@ -275,7 +276,7 @@ def main(argv=None):
         if "dask" in rows:
             print(f"\nDask LocalCluster start-up (not in the times above): "
                   f"{rows['dask']['cluster_start_s']:.1f} s")
-        for m in ("pool", "dask", "dask-mmap"):
+        for m in ("pool", "dask", "dask-quiet"):
             if m in rows:
                 r = rows[m]
                 print(f"{m}: speed-up {base / r['wall_s']:.2f}× in all, "

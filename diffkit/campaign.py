@@ -45,11 +45,12 @@ from concurrent.futures import ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from multiprocessing import get_context
 
+from ._worker_env import DASK_SETTINGS, dask_profiler_paused, read_single_threaded, tune_malloc
 from .errors import DiffkitError, InputError, UsageError
 from .io.atomic import atomic_path, atomic_write
 from .io.manifest import read_manifest
 
-__all__ = ["CampaignResult", "RunOutcome", "run_campaign", "campaign_status", "slug"]
+__all__ = ["CampaignResult", "RunOutcome", "run_campaign", "campaign_status", "slug", "DASK_SETTINGS"]
 
 _HASH_CACHE = ".content-hashes.json"
 _OUTPUTS_KEY = ".outputs-key.json"
@@ -143,6 +144,11 @@ class _Task:
     draw_figures: bool = False  # draw the report figures in the worker (not part of the key)
 
 
+#: Per-hop event lists of a run's hop census: kept in its run file, left out of the
+#: campaign's summary.json and ``--json`` output.
+HOP_EVENT_FIELDS = ("hop_times_ps", "hop_frames", "hop_ions", "hop_jump_distances_A")
+
+
 @dataclasses.dataclass(frozen=True)
 class RunOutcome:
     """What became of one run: ``status`` is "done", "reused" or "failed"."""
@@ -155,8 +161,19 @@ class RunOutcome:
     reason: str = ""
 
     def to_dict(self):
-        # shallow: ``results`` is already plain data (a deep copy costs seconds per campaign)
-        return {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
+        """Plain data for the summaries and ``--json``; per-hop event lists left out.
+
+        The lists (one entry per hop: :data:`HOP_EVENT_FIELDS`, about 1 MB per
+        run with many hops) stay in the run file's results. Shallow otherwise:
+        ``results`` is already plain data (a deep copy costs seconds per campaign).
+        """
+        out = {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
+        hops = ((self.results or {}).get("assessment") or {}).get("hops")
+        if isinstance(hops, dict) and any(k in hops for k in HOP_EVENT_FIELDS):
+            assessment = dict(self.results["assessment"],
+                              hops={k: v for k, v in hops.items() if k not in HOP_EVENT_FIELDS})
+            out["results"] = dict(self.results, assessment=assessment)
+        return out
 
 
 def _analysis_settings(cand, run):
@@ -488,44 +505,21 @@ def _warm_up_report():
         pass
 
 
-_MMAP_THRESHOLD = 32 * 1024 * 1024  # bytes: the largest value glibc's adaptive threshold takes
-_malloc_tuned = []
-
-
-def _restore_mmap_threshold():
-    """Give a Dask worker back the C library's usual handling of large arrays (once).
-
-    Dask's nanny starts workers with ``MALLOC_TRIM_THRESHOLD_`` set, which
-    freezes glibc's adaptive mmap threshold at 128 KiB: every large numpy
-    array of the analysis is then mapped and unmapped afresh, and the page
-    faults cost about a quarter of the run time. Setting the threshold to
-    32 MiB (the adaptive threshold's maximum; the same as the environment
-    variable ``MALLOC_MMAP_THRESHOLD_``) gives it back. Left alone when that
-    variable is set, and where the C library has no ``mallopt`` (not glibc).
-    """
-    if _malloc_tuned or "MALLOC_MMAP_THRESHOLD_" in os.environ:
-        return
-    _malloc_tuned.append(True)
-    try:
-        import ctypes
-
-        ctypes.CDLL(None).mallopt(-3, _MMAP_THRESHOLD)  # -3: M_MMAP_THRESHOLD (malloc.h)
-    except (OSError, AttributeError, TypeError):  # pragma: no cover - not glibc
-        pass
-
-
 def _worker_setup():
     """In a worker process of the pool: read with one thread (the processes fill the cores)."""
-    from .io._parsing import single_threaded
-
-    single_threaded()
+    read_single_threaded()
 
 
 def _execute_on_dask(task):
-    """A Dask worker's task: :func:`_execute` with the worker's malloc made usual."""
-    _restore_mmap_threshold()
-    _worker_setup()
-    return _execute(task)
+    """A Dask worker's task: :func:`_execute` in the environment a run wants.
+
+    glibc's memory thresholds as an ordinary process has them, one reading
+    thread, and the worker's profiler paused (see :mod:`diffkit._worker_env`).
+    """
+    tune_malloc()
+    read_single_threaded()
+    with dask_profiler_paused():
+        return _execute(task)
 
 
 def _run_dask(tasks, scheduler, progress):
@@ -541,6 +535,8 @@ def _run_dask(tasks, scheduler, progress):
         raise UsageError(f"cannot reach a Dask scheduler at {scheduler!r}: {exc}") from exc
     try:
         futures = client.map(_execute_on_dask, tasks, pure=False)
+        if any(t.draw_figures for t in tasks):
+            _warm_up_report()  # while the workers compute, not after them
         done = 0
         for _ in as_completed(futures):
             done += 1

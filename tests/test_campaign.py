@@ -129,6 +129,26 @@ def work(base, tmp_path):
             "out": str(tmp_path / "out")}
 
 
+def test_summary_leaves_hop_events_to_the_run_files(base):
+    from diffkit.campaign import HOP_EVENT_FIELDS
+
+    summary, runs = base["canonical"]
+    by_label = {(r["candidate"], r["label"]): r for r in summary["campaign"]["runs"]}
+    n_with_hops = 0
+    for o in base["ref"].outcomes:
+        stored = runs[os.path.relpath(o.run_path, base["ref_out"])]["assessment"]["hops"]
+        listed = by_label[(o.candidate, o.label)]["results"]["assessment"]["hops"]
+        assert not set(HOP_EVENT_FIELDS) & set(listed)
+        # the run file keeps one entry per hop in each list; the summary keeps the counts
+        assert {len(stored[k]) for k in HOP_EVENT_FIELDS} == {stored["total_hops"]}
+        assert listed == {k: v for k, v in stored.items() if k not in HOP_EVENT_FIELDS}
+        n_with_hops += stored["total_hops"] > 0
+    assert n_with_hops > 0
+    # the outcome in memory is left whole (the report may draw the hops from it)
+    assert all(set(HOP_EVENT_FIELDS) <= set(o.results["assessment"]["hops"])
+               for o in base["ref"].outcomes)
+
+
 # --------------------------------------------------------------------------- reuse
 def test_reference_run_is_complete(base):
     ref = base["ref"]
