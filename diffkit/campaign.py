@@ -32,6 +32,7 @@ that run's figures itself.
 
 from __future__ import annotations
 
+import collections
 import csv
 import dataclasses
 import functools
@@ -455,19 +456,30 @@ def _lost(task, exc):
                              "of memory?); it is tried again when the campaign is run again")
 
 
-def _run_tasks(tasks, workers, scheduler, progress):
+def _run_tasks(tasks, workers, scheduler, progress, on_result=None):
+    """Run the tasks; their outcomes in task order.
+
+    ``on_result(i, outcome)`` is called in this process as each outcome
+    arrives (``i`` indexes ``tasks``), while other tasks may still compute.
+    """
     if not tasks:
         return []
     if scheduler is not None:
-        return _run_dask(tasks, scheduler, progress)
+        return _run_dask(tasks, scheduler, progress, on_result)
     if workers is None:
         workers = os.cpu_count() or 1
     out = []
+
+    def arrived(i, outcome):
+        out.append(outcome)
+        if on_result:
+            on_result(i, outcome)
+        if progress:
+            progress(i + 1, len(tasks))
+
     if workers == 1 or len(tasks) == 1:
         for i, t in enumerate(tasks):
-            out.append(_execute(t))
-            if progress:
-                progress(i + 1, len(tasks))
+            arrived(i, _execute(t))
         return out
     with ProcessPoolExecutor(max_workers=min(workers, len(tasks)),
                              mp_context=get_context("spawn"),
@@ -477,11 +489,10 @@ def _run_tasks(tasks, workers, scheduler, progress):
             _warm_up_report()  # while the workers compute, not after them
         for i, (t, fut) in enumerate(zip(tasks, futures)):
             try:
-                out.append(fut.result())
+                outcome = fut.result()
             except BrokenProcessPool as exc:  # _execute never raises: the process died
-                out.append(_lost(t, exc))
-            if progress:
-                progress(i + 1, len(tasks))
+                outcome = _lost(t, exc)
+            arrived(i, outcome)
     return out
 
 
@@ -522,7 +533,7 @@ def _execute_on_dask(task):
         return _execute(task)
 
 
-def _run_dask(tasks, scheduler, progress):
+def _run_dask(tasks, scheduler, progress, on_result=None):
     try:
         from dask.distributed import Client, as_completed
     except ImportError as exc:
@@ -535,19 +546,22 @@ def _run_dask(tasks, scheduler, progress):
         raise UsageError(f"cannot reach a Dask scheduler at {scheduler!r}: {exc}") from exc
     try:
         futures = client.map(_execute_on_dask, tasks, pure=False)
+        index = {fut.key: i for i, fut in enumerate(futures)}
         if any(t.draw_figures for t in tasks):
             _warm_up_report()  # while the workers compute, not after them
+        out = [None] * len(tasks)
         done = 0
-        for _ in as_completed(futures):
+        for fut in as_completed(futures):
+            i = index[fut.key]
+            try:
+                out[i] = fut.result()
+            except Exception as exc:  # _execute never raises: its worker was lost
+                out[i] = _lost(tasks[i], exc)
             done += 1
+            if on_result:
+                on_result(i, out[i])
             if progress:
                 progress(done, len(tasks))
-        out = []
-        for t, fut in zip(tasks, futures):
-            try:
-                out.append(fut.result())
-            except Exception as exc:  # _execute never raises: its worker was lost
-                out.append(_lost(t, exc))
         return out
     finally:
         if own:
@@ -608,6 +622,27 @@ def _candidate_summary(cand, outcomes):
     except DiffkitError as exc:
         return None, flags + [f"no Arrhenius summary: {exc}"]
     return summary, flags
+
+
+def _candidate_ahead(cand, outcomes, *, draw):
+    """(summary, flags, Arrhenius plot images or None) of a candidate whose runs are all in.
+
+    Called while other candidates' runs still compute; None when anything
+    goes wrong (the candidate is then summarised after the runs, as usual).
+    """
+    try:
+        summary, flags = _candidate_summary(cand, outcomes)
+    except Exception:  # noqa: BLE001 - done again (and reported) after the runs
+        return None
+    images = None
+    if draw and summary is not None:
+        try:
+            from .report.campaign_report import render_campaign_candidate_images
+
+            images = render_campaign_candidate_images(cand.name, summary)
+        except Exception:  # noqa: BLE001 - the report then draws it itself
+            images = None
+    return summary, flags, images
 
 
 @dataclasses.dataclass(frozen=True)
@@ -697,10 +732,26 @@ def run_campaign(manifest_path, out_dir, *, workers=None, scheduler=None, progre
     if progress and n_known:
         progress(n_known, len(tasks))
     step = None if not progress else (lambda done, _total: progress(n_known + done, len(tasks)))
-    for i, o in zip(todo, _run_tasks([tasks[i] for i in todo], workers, scheduler, step)):
-        outcomes[i] = o
+    # a candidate whose last run has arrived gets its summary (and the report its Arrhenius
+    # plot) here and now, while the workers compute the other candidates' runs
+    early = {}
+    waiting = collections.Counter(tasks[i].candidate for i in todo)
+    candidates = {cand.name: cand for cand in manifest.candidates}
+
+    def arrived(j, outcome):
+        outcomes[todo[j]] = outcome
+        name = outcome.candidate
+        waiting[name] -= 1
+        if waiting[name] == 0:
+            mine = [o for o in outcomes if o is not None and o.candidate == name]
+            early[name] = _candidate_ahead(candidates[name], mine, draw=report)
+
+    _run_tasks([tasks[i] for i in todo], workers, scheduler, step, on_result=arrived)
     summaries, cflags = {}, {}
     for cand in manifest.candidates:
+        if early.get(cand.name) is not None:
+            summaries[cand.name], cflags[cand.name] = early[cand.name][:2]
+            continue
         mine = [o for o in outcomes if o.candidate == cand.name]
         summaries[cand.name], cflags[cand.name] = _candidate_summary(cand, mine)
     result = CampaignResult(manifest.title, out_dir, tuple(outcomes), summaries, cflags, {})
@@ -725,7 +776,9 @@ def run_campaign(manifest_path, out_dir, *, workers=None, scheduler=None, progre
                 found = None if o.status == "failed" else _read_figures(t)
                 if found is not None:
                     images[t.run_path] = found
-            write_campaign_report(path, manifest, result, run_images=images)
+            drawn = {name: e[2] for name, e in early.items() if e is not None and e[2] is not None}
+            write_campaign_report(path, manifest, result, run_images=images,
+                                  candidate_images=drawn)
             stored["report"] = report_key
             _save_outputs_key(out_dir, stored)  # after the report: a kill between re-renders
         files["report_html"] = path

@@ -757,11 +757,23 @@ def test_sigkill_while_caching_figures_then_resume_gives_the_same_report(base, r
 
 @pytest.mark.slow
 def test_process_pool_draws_the_run_figures_in_its_workers(base, reported, tmp_path,
-                                                           count_drawing):
+                                                           count_drawing, monkeypatch):
+    import diffkit.report.campaign_report as campaign_report
+    import diffkit.report.plots as plots
+
+    events = []
+    real_plot, real_write = plots.arrhenius_figure, campaign_report.write_campaign_report
+    monkeypatch.setattr(plots, "arrhenius_figure",
+                        lambda s, **kw: events.append(("plot", s.name)) or real_plot(s, **kw))
+    monkeypatch.setattr(campaign_report, "write_campaign_report",
+                        lambda *a, **kw: events.append(("report", None)) or real_write(*a, **kw))
     out = str(tmp_path / "out")
     res = run_campaign(base["manifest"], out, workers=2, report=True)
     assert set(statuses(res).values()) == {"done"}
     assert count_drawing == []  # not in this process: the pool's workers drew them
+    # each candidate's Arrhenius plot was drawn here as its last run came in, before the
+    # report was assembled, and not again by it
+    assert events == [("plot", n) for n, *_ in CANDIDATES] + [("report", None)]
     assert len(_figure_files(out)) == 6
     assert _report_text(os.path.join(out, "report.html"), out, base["root"]) == reported["text"]
     assert canonical(out, base["root"]) == base["canonical"]

@@ -472,3 +472,42 @@ def test_pre_rendered_run_images_give_the_same_report(campaign, monkeypatch):
     assert render_report(spoilt) == expected
     with pytest.raises(UsageError):
         render_run_images("not a run")
+
+
+def test_pre_rendered_candidate_images_give_the_same_report(campaign, monkeypatch):
+    import dataclasses
+
+    import diffkit.report.html as report_html
+    from diffkit.report.html import render_candidate_images
+
+    report, _, _ = campaign
+    drawn = dataclasses.replace(report, created_utc="2026-01-02T03:04:05+00:00")
+    given = {c.name: render_candidate_images(c) for c in drawn.candidates}
+    # one Arrhenius plot per candidate with a fit; none for those without
+    fitted = [int(report_html._get(c.summary, "fit") is not None) for c in drawn.candidates]
+    assert [len(v) for v in given.values()] == fitted and fitted[:2] == [1, 1]
+    assert json.loads(json.dumps(given[drawn.candidates[0].name])) == \
+        list(given[drawn.candidates[0].name])
+    ready = dataclasses.replace(drawn, candidates=tuple(
+        dataclasses.replace(c, images=given[c.name]) for c in drawn.candidates))
+    expected = render_report(drawn)
+
+    def refuse(*_a, **_k):
+        raise AssertionError("Arrhenius plot drawn although it was given")
+
+    with monkeypatch.context() as mp:
+        mp.setattr(report_html.plots, "arrhenius_figure", refuse)
+        assert render_report(ready) == expected  # the same page to the byte
+    # made at another resolution: drawn again, as without them
+    assert render_report(ready, dpi=80) == render_report(drawn, dpi=80)
+    # a plot that could not be drawn becomes the same one-line note either way
+    with monkeypatch.context() as mp:
+        mp.setattr(report_html.plots, "arrhenius_figure",
+                   lambda *_a, **_k: (_ for _ in ()).throw(ValueError("no axes")))
+        failed = render_candidate_images(drawn.candidates[0])
+        assert failed[0]["error"].endswith("ValueError: no axes")
+        one = dataclasses.replace(drawn, candidates=drawn.candidates[:1])
+        assert render_report(dataclasses.replace(one, candidates=(dataclasses.replace(
+            one.candidates[0], images=failed),))) == render_report(one)
+    with pytest.raises(UsageError):
+        render_candidate_images("not a candidate")

@@ -4,10 +4,12 @@ from __future__ import annotations
 
 import os
 
-from .html import CampaignReport, CandidateSection, RunSection, render_run_images, write_report
+from .html import (CampaignReport, CandidateSection, RunSection, render_candidate_images,
+                   render_run_images, write_report)
 
 __all__ = ["write_campaign_report", "write_candidate_report", "campaign_run_section",
-           "render_campaign_run_images", "IMAGE_FORMAT", "IMAGE_DPI"]
+           "render_campaign_run_images", "render_campaign_candidate_images", "IMAGE_FORMAT",
+           "IMAGE_DPI"]
 
 _RUN_FIGURE_LIMIT = 60  # beyond this many runs, per-run figures are left out (speed)
 
@@ -71,7 +73,18 @@ def render_campaign_run_images(label, results):
                              dpi=IMAGE_DPI)
 
 
-def write_campaign_report(path, manifest, result, *, run_images=None):
+def render_campaign_candidate_images(name, summary):
+    """Draw one campaign candidate's Arrhenius plot now (while other runs still compute).
+
+    The records are those :func:`write_campaign_report` would make for the
+    candidate from the same ``summary`` (see
+    :func:`diffkit.report.html.render_candidate_images`).
+    """
+    return render_candidate_images(CandidateSection(name=name, summary=summary),
+                                   image_format=IMAGE_FORMAT, dpi=IMAGE_DPI)
+
+
+def write_campaign_report(path, manifest, result, *, run_images=None, candidate_images=None):
     """Write the campaign's self-contained HTML report; returns the path.
 
     Parameters
@@ -82,10 +95,14 @@ def write_campaign_report(path, manifest, result, *, run_images=None):
     run_images : mapping of str to tuple of dict, optional
         Figures drawn ahead of time, by run file path; a run without them (or
         with images made differently) has its figures drawn here.
+    candidate_images : mapping of str to tuple of dict, optional
+        Candidates' Arrhenius plots drawn ahead of time from the same summaries
+        (:func:`render_campaign_candidate_images`), by candidate name.
     """
     from .tables import campaign_rows
 
     run_images = run_images or {}
+    candidate_images = candidate_images or {}
     order = [r["candidate"] for r in campaign_rows(result)]
     sections = []
     for name in order:
@@ -99,7 +116,8 @@ def write_campaign_report(path, manifest, result, *, run_images=None):
                 images=run_images.get(o.run_path)))
         notes = tuple(result.candidate_flags.get(name, ()))
         sections.append(CandidateSection(name=name, summary=result.summaries.get(name),
-                                         runs=tuple(runs), notes=notes))
+                                         runs=tuple(runs), notes=notes,
+                                         images=candidate_images.get(name)))
     from .. import __version__
 
     report = CampaignReport(

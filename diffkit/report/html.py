@@ -22,8 +22,10 @@ Results may be the result objects or their ``to_dict()`` forms. Nothing here
 computes physics: numbers are formatted, figures drawn by
 :mod:`diffkit.report.plots`. A run's standard figures can also be drawn ahead
 of time, elsewhere (:func:`render_run_images`; campaigns do it in the worker
-that analysed the run) and handed in as ``RunSection(images=...)``: the page
-is then the same, without drawing them again.
+that analysed the run) and handed in as ``RunSection(images=...)``; so can a
+candidate's Arrhenius plot (:func:`render_candidate_images`,
+``CandidateSection(images=...)``): the page is then the same, without drawing
+them again.
 """
 
 from __future__ import annotations
@@ -42,7 +44,7 @@ from ..units import MS_PER_S
 from . import plots
 
 __all__ = ["RunSection", "CandidateSection", "CampaignReport", "render_report", "write_report",
-           "render_run_images", "REPORT_CAUTIONS"]
+           "render_run_images", "render_candidate_images", "REPORT_CAUTIONS"]
 
 #: The plain-words cautions every report states in its summary.
 REPORT_CAUTIONS = (
@@ -124,12 +126,18 @@ class CandidateSection:
     runs : sequence of RunSection
     notes : sequence of str
         Further plain-words remarks (e.g. a failed run, from the campaign).
+    images : sequence of mapping, optional
+        The candidate's figures (its Arrhenius plot) already drawn and encoded
+        by :func:`render_candidate_images` from the same summary; embedded as
+        they are when made in the report's image format and resolution,
+        otherwise (or when None) drawn here.
     """
 
     name: str
     summary: object = None
     runs: tuple = ()
     notes: tuple = ()
+    images: tuple | None = None
 
 
 @dataclass(frozen=True)
@@ -815,21 +823,58 @@ def _run_section(run, enc, cand_index, run_index):
     return "".join(p for p in parts if p)
 
 
+def _encode_candidate_figures(cand, enc):
+    """The candidate's figures as image records: its Arrhenius plot when it has a fit."""
+    s = cand.summary
+    if _get(s, "fit") is None:
+        return []
+    fig, err = _try_figure(plots.arrhenius_figure, s,
+                           target_K=_num(_get(s, "target_temperature_K", 300.0)))
+    if fig is None:
+        return [enc.failed(err)]
+    return [enc.encode(fig, "Arrhenius plot: simulated temperatures (±1 s.e.), the fitted line "
+                       "and its 95% band carried to the target temperature; triangles mark "
+                       "upper bounds where no hops were seen.", f"Arrhenius plot of {cand.name}")]
+
+
+def render_candidate_images(cand, *, image_format="png", dpi=110):
+    """Draw and encode a candidate's figures (its Arrhenius plot), ready to embed later.
+
+    What :func:`render_report` would draw for the candidate, done ahead of
+    time — e.g. while a campaign's other runs are still computing — so that the
+    report can embed them through ``CandidateSection(images=...)``.
+
+    Parameters
+    ----------
+    cand : CandidateSection
+        Its ``summary`` is what is drawn (runs are not needed).
+    image_format : {"png", "svg"}
+    dpi : float
+        Resolution of PNG images.
+
+    Returns
+    -------
+    tuple of dict
+        Image records as :func:`render_run_images` makes them; empty when the
+        candidate has no Arrhenius fit.
+    """
+    if not isinstance(cand, CandidateSection):
+        raise UsageError(f"render_candidate_images needs a CandidateSection, "
+                         f"got {type(cand).__name__}")
+    return tuple(_encode_candidate_figures(cand, _FigureEncoder(image_format, dpi)))
+
+
 def _candidate_section(cand, i, enc):
     s = cand.summary
     parts = [f'<section class="candidate" id="cand-{i}"><header class="cand-head">'
              f'<h2><span class="rank">{i}</span> {_e(cand.name)}</h2>'
              f'{_tier_badge(_get(s, "tier")) if s is not None else ""}</header>']
-    fit = _get(s, "fit")
     facts = _candidate_facts(s)
-    arr = ""
-    if fit is not None:
-        fig, err = _try_figure(plots.arrhenius_figure, s,
-                               target_K=_num(_get(s, "target_temperature_K", 300.0)))
-        arr = (enc.html(fig, "Arrhenius plot: simulated temperatures (±1 s.e.), the fitted line "
-                        "and its 95% band carried to the target temperature; triangles mark "
-                        "upper bounds where no hops were seen.", f"Arrhenius plot of {cand.name}")
-               if fig is not None else f'<p class="failure">{_e(err)}</p>')
+    if cand.images is not None and enc.accepts(cand.images):
+        images = list(cand.images)  # drawn before, e.g. while the campaign's runs went on
+    else:
+        images = _encode_candidate_figures(cand, enc)
+    arr = "".join(enc.embed(im) for im in images)
     parts.append(f'<div class="cand-top"><div>{facts}</div><div>{arr}</div></div>')
     flags = list(_get(s, "flags", ()) or ())
     if flags:
