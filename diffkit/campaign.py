@@ -51,7 +51,8 @@ from .errors import DiffkitError, InputError, UsageError
 from .io.atomic import atomic_path, atomic_write
 from .io.manifest import read_manifest
 
-__all__ = ["CampaignResult", "RunOutcome", "run_campaign", "campaign_status", "slug", "DASK_SETTINGS"]
+__all__ = ["CampaignResult", "RunOutcome", "run_campaign", "campaign_status", "slug",
+           "DASK_SETTINGS", "HOP_EVENT_FIELDS"]
 
 _HASH_CACHE = ".content-hashes.json"
 _OUTPUTS_KEY = ".outputs-key.json"
