@@ -1,8 +1,8 @@
 """The environment a campaign's worker process gives diffkit's runs.
 
 A run is long numpy work in one thread. Two things that a Dask worker does by
-default cost such work a good share of its time, and are set right here for
-the duration of diffkit's tasks:
+default cost such work a good share of its time; diffkit's tasks set the first
+right for the rest of the worker's life, and pause the second while they run:
 
 * the C library's memory handling: Dask's nanny starts each worker with
   ``MALLOC_TRIM_THRESHOLD_`` set low, which freezes glibc's adaptive
