@@ -457,31 +457,29 @@ def _lost(task, exc):
                              "of memory?); it is tried again when the campaign is run again")
 
 
-def _run_tasks(tasks, workers, scheduler, progress, on_result=None):
-    """Run the tasks; their outcomes in task order.
+def _run_tasks(tasks, workers, scheduler, progress, on_result):
+    """Run the tasks, handing each outcome to ``on_result(i, outcome)`` as it arrives.
 
-    ``on_result(i, outcome)`` is called in this process as each outcome
-    arrives (``i`` indexes ``tasks``), while other tasks may still compute.
+    ``on_result`` is called in this process (``i`` indexes ``tasks``), while
+    other tasks may still compute.
     """
     if not tasks:
-        return []
+        return
     if scheduler is not None:
-        return _run_dask(tasks, scheduler, progress, on_result)
+        _run_dask(tasks, scheduler, progress, on_result)
+        return
     if workers is None:
         workers = os.cpu_count() or 1
-    out = []
 
     def arrived(i, outcome):
-        out.append(outcome)
-        if on_result:
-            on_result(i, outcome)
+        on_result(i, outcome)
         if progress:
             progress(i + 1, len(tasks))
 
     if workers == 1 or len(tasks) == 1:
         for i, t in enumerate(tasks):
             arrived(i, _execute(t))
-        return out
+        return
     with ProcessPoolExecutor(max_workers=min(workers, len(tasks)),
                              mp_context=get_context("spawn"),
                              initializer=_worker_setup) as pool:
@@ -494,7 +492,6 @@ def _run_tasks(tasks, workers, scheduler, progress, on_result=None):
             except BrokenProcessPool as exc:  # _execute never raises: the process died
                 outcome = _lost(t, exc)
             arrived(i, outcome)
-    return out
 
 
 def _warm_up_report():
@@ -534,7 +531,7 @@ def _execute_on_dask(task):
         return _execute(task)
 
 
-def _run_dask(tasks, scheduler, progress, on_result=None):
+def _run_dask(tasks, scheduler, progress, on_result):
     try:
         from dask.distributed import Client, as_completed
     except ImportError as exc:
@@ -550,20 +547,17 @@ def _run_dask(tasks, scheduler, progress, on_result=None):
         index = {fut.key: i for i, fut in enumerate(futures)}
         if any(t.draw_figures for t in tasks):
             _warm_up_report()  # while the workers compute, not after them
-        out = [None] * len(tasks)
         done = 0
         for fut in as_completed(futures):
             i = index[fut.key]
             try:
-                out[i] = fut.result()
+                outcome = fut.result()
             except Exception as exc:  # _execute never raises: its worker was lost
-                out[i] = _lost(tasks[i], exc)
+                outcome = _lost(tasks[i], exc)
             done += 1
-            if on_result:
-                on_result(i, out[i])
+            on_result(i, outcome)
             if progress:
                 progress(done, len(tasks))
-        return out
     finally:
         if own:
             client.close()
